@@ -1,0 +1,3 @@
+from verify.cli import app
+
+app(prog_name="verify")
