@@ -25,6 +25,7 @@ app = typer.Typer(
 )
 
 EXIT_OK, EXIT_FINDINGS, EXIT_USAGE = 0, 1, 2
+DEMO_WORKBOOK = "forest_demo.xlsx"
 
 
 class Pathway(str, Enum):
@@ -89,3 +90,60 @@ def check(
         verdict = "ready to run" if book.ok else "fix the errors above"
         typer.echo(f"{workbook.name}: {_summary_line(book.findings)}; {verdict}")
     raise typer.Exit(EXIT_OK if book.ok else EXIT_FINDINGS)
+
+
+def _headline(document: dict) -> str:
+    totals = document["totals"]
+    net = totals["net_removals_tco2e"]
+    return (
+        f"{document['project']['project_name']}: net removals {net:,.1f} tCO2e, "
+        f"issuable credits {totals['issuable_credits']:,} "
+        f"({len(document['vintages'])} vintage(s))"
+    )
+
+
+def _run_and_write(workbook: Path, out: Path, pdf: bool) -> None:
+    from .atomic import OutputRefused
+    from .engine import run as run_engine
+    from .outputs import write_outputs
+
+    result = run_engine(workbook)
+    if not result.ok:
+        _print_findings(result.findings, err=True)
+        typer.echo(f"{workbook.name}: {_summary_line(result.findings)}; nothing computed", err=True)
+        raise typer.Exit(EXIT_FINDINGS)
+    try:
+        written = write_outputs(result, out, pdf=pdf)
+    except OutputRefused as exc:
+        typer.echo(str(exc), err=True)
+        raise typer.Exit(EXIT_USAGE)
+    warnings = [f for f in result.findings if f.severity != "note"]
+    if warnings:
+        _print_findings(warnings, err=True)
+    typer.echo(_headline(result.to_dict()))
+    for path in (written.json, written.xlsx, written.pdf):
+        if path is not None:
+            typer.echo(f"wrote {path}")
+
+
+@app.command()
+def run(
+    workbook: Path = typer.Argument(..., help="The project workbook (.xlsx)."),
+    out: Path = typer.Option(..., "--out", "-o", help="Folder for results.json, results.xlsx and summary.pdf."),
+    pdf: bool = typer.Option(True, "--pdf/--no-pdf", help="Also write the PDF summary."),
+) -> None:
+    """Validate, recompute the claim and write the results. Exit 1 when the workbook has errors."""
+    _run_and_write(workbook, out, pdf)
+
+
+@app.command()
+def demo(
+    out: Path = typer.Option(Path("verify-demo-output"), "--out", "-o", help="Folder for the outputs."),
+    pdf: bool = typer.Option(True, "--pdf/--no-pdf", help="Also write the PDF summary."),
+) -> None:
+    """Run the bundled fictional demo project and say where the outputs are."""
+    from importlib import resources
+
+    with resources.as_file(resources.files("verify.demo_projects") / DEMO_WORKBOOK) as workbook:
+        typer.echo(f"demo workbook: {workbook}")
+        _run_and_write(workbook, out, pdf)
