@@ -14,6 +14,16 @@ from verify.schema import all_sheets
 Sheets = dict[str, list[list[Any]]]
 
 
+def chave_2014_eq4_kg(rho_g_cm3: float, dbh_cm: float, height_m: float) -> float:
+    """Chave et al. (2014) Glob. Change Biol. 20:3177, Eq. 4: AGB = 0.0673 (rho D^2 H)^0.976."""
+    return 0.0673 * (rho_g_cm3 * dbh_cm**2 * height_m) ** 0.976
+
+
+def minimal_tree_tco2e(dbh_cm: float, height_m: float = 15.0) -> float:
+    """tCO2e of one tree of the minimal workbook's species: rho 0.6, R 0.24, CF 0.47, 44/12."""
+    return chave_2014_eq4_kg(0.6, dbh_cm, height_m) * (1 + 0.24) * 0.47 * 44 / 12 / 1000
+
+
 def write_workbook(path: Path, sheets: Sheets) -> Path:
     """Write ``sheets`` (name -> rows, header first) as plain sheets, no template features."""
     book = Workbook()

@@ -57,6 +57,16 @@ def test_check_json_equals_library_result(tmp_path):
     assert json.loads(result.output) == findings_summary(load_workbook(path))
 
 
+def test_check_lists_calculation_findings_of_a_valid_workbook(tmp_path):
+    sheets = minimal_forest()
+    sheets["Trees"][1][4] = 4.0   # below the model's 5 cm minimum: an extrapolation, a warning
+    path = write_workbook(tmp_path / "w.xlsx", sheets)
+    result = runner.invoke(app, ["check", "--json", str(path)])
+    assert result.exit_code == 0
+    located = {(f["code"], f["location"]) for f in json.loads(result.output)["findings"]}
+    assert ("dbh_outside_model_range", "Trees!E2") in located
+
+
 def test_missing_file_is_a_finding_not_a_traceback(tmp_path):
     result = runner.invoke(app, ["check", str(tmp_path / "absent.xlsx")])
     assert result.exit_code == 1

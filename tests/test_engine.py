@@ -11,24 +11,13 @@ import pytest
 from scipy import stats
 from typer.testing import CliRunner
 
-from conftest import minimal_forest, project_rows, write_workbook
+from conftest import minimal_forest, minimal_tree_tco2e as tree_tco2e, project_rows, write_workbook
 from verify.cli import app
 from verify.engine import run
 from verify.outputs import write_outputs
 from verify.results_json import results_validator
 
 runner = CliRunner()
-
-
-def chave_2014_eq4_kg(rho_g_cm3: float, dbh_cm: float, height_m: float) -> float:
-    """Chave et al. (2014) Glob. Change Biol. 20:3177, Eq. 4: AGB = 0.0673 (rho D^2 H)^0.976."""
-    return 0.0673 * (rho_g_cm3 * dbh_cm**2 * height_m) ** 0.976
-
-
-def tree_tco2e(dbh_cm: float) -> float:
-    agb = chave_2014_eq4_kg(0.6, dbh_cm, 15.0)
-    # BGB = AGB x R (0.24), C = (AGB + BGB) x CF (0.47), CO2 = C x 44/12
-    return agb * (1 + 0.24) * 0.47 * 44 / 12 / 1000
 
 
 @pytest.fixture

@@ -17,7 +17,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
-from . import TOOL_NAME, __version__, forest
+from . import TOOL_NAME, __version__, biochar, checkplots, forest, soil
 from .accounting import (
     BaselineRow,
     ChainResult,
@@ -30,6 +30,7 @@ from .accounting import (
 from .consistency import event_order
 from .findings import Finding, has_errors
 from .pathway import PathwayEstimate
+from .reconciliation import reconcile
 from .workbook import LoadedWorkbook, load_workbook
 
 CAUTIONS = [
@@ -58,7 +59,18 @@ def _forest(book: LoadedWorkbook, confidence_pct: float) -> PathwayEstimate:
     return forest.quantify(book, events[0], events[-1], confidence_pct)
 
 
-QUANTIFIERS: dict[str, Callable[[LoadedWorkbook, float], PathwayEstimate]] = {"forest": _forest}
+def _soil(book: LoadedWorkbook, confidence_pct: float) -> PathwayEstimate:
+    events = event_order(book.table("SoilSamples"))
+    return soil.quantify(book, events[0], events[-1], confidence_pct)
+
+
+def _biochar(book: LoadedWorkbook, confidence_pct: float) -> PathwayEstimate:
+    return biochar.quantify(book, confidence_pct)
+
+
+QUANTIFIERS: dict[str, Callable[[LoadedWorkbook, float], PathwayEstimate]] = {
+    "forest": _forest, "soil": _soil, "biochar": _biochar,
+}
 
 
 @dataclass
@@ -69,6 +81,8 @@ class RunResult:
     run_date: dt.date
     estimate: PathwayEstimate | None = None
     chain: ChainResult | None = None
+    reconciliation: dict[str, Any] | None = None
+    check_plots: dict[str, Any] | None = None
     findings: list[Finding] = field(default_factory=list)
 
     @property
@@ -105,6 +119,8 @@ class RunResult:
                 reversal=self.chain.reversal,
                 emissions=self.chain.emissions_detail,
                 methods=self.estimate.methods + self.chain.methods,
+                reconciliation=self.reconciliation,
+                check_plots=self.check_plots,
             )
         return json_ready(document)
 
@@ -190,7 +206,24 @@ def compute(book: LoadedWorkbook, run_date: dt.date | None = None) -> RunResult:
         book.table("Risk")["score_pct"].tolist(), _reversal_rows(book), settings,
     )
     result.findings += result.estimate.findings + result.chain.findings
+    result.reconciliation, findings = reconcile(
+        book.table("Claims"), result.chain.vintages, float(project["materiality_pct"]),
+        book.sheets["Claims"].letters,
+    )
+    result.findings += findings
+    if book.pathway == "forest":
+        result.check_plots, findings = checkplots.compare(book, settings.confidence_pct, _tolerances(project))
+        result.findings += findings
     return result
+
+
+def _tolerances(project: dict[str, Any]) -> checkplots.Tolerances:
+    return checkplots.Tolerances(
+        dbh_cm=float(project["check_dbh_tolerance_cm"]),
+        dbh_pct=float(project["check_dbh_tolerance_pct"]),
+        height_m=float(project["check_height_tolerance_m"]),
+        height_pct=float(project["check_height_tolerance_pct"]),
+    )
 
 
 def run(path: str | Path, run_date: dt.date | None = None) -> RunResult:

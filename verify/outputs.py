@@ -36,6 +36,6 @@ def write_outputs(result: RunResult, out_dir: Path, pdf: bool = True) -> Written
     if pdf:
         from .report_pdf import write_summary_pdf  # weasyprint only when a PDF is written
 
-        write_summary_pdf(document, out_dir / PDF_NAME)
+        write_summary_pdf(document, out_dir / PDF_NAME, protected)
         written = WrittenOutputs(written.json, written.xlsx, out_dir / PDF_NAME)
     return written

@@ -121,13 +121,18 @@ def load_workbook(path: str | Path) -> LoadedWorkbook:
     return loaded
 
 
-def findings_summary(book: LoadedWorkbook) -> dict[str, Any]:
-    """The result of ``verify check`` as plain data (the ``--json`` view)."""
-    counts = {s: sum(f.severity == s for f in book.findings) for s in ("error", "warning", "note")}
+def findings_summary(book: LoadedWorkbook, findings: list[Finding] | None = None) -> dict[str, Any]:
+    """The result of ``verify check`` as plain data (the ``--json`` view).
+
+    ``findings`` defaults to the validation findings; the engine passes its
+    longer list, which adds the data-quality findings of the calculation.
+    """
+    findings = book.findings if findings is None else findings
+    counts = {s: sum(f.severity == s for f in findings) for s in ("error", "warning", "note")}
     return {
         "input": {"path": str(book.path), "file_name": book.path.name, "sha256": book.sha256},
         "pathway": book.pathway,
-        "ok": book.ok,
+        "ok": not has_errors(findings),
         "counts": counts,
-        "findings": [f.to_dict() for f in book.findings],
+        "findings": [f.to_dict() for f in findings],
     }
