@@ -211,7 +211,14 @@ def format_plain(value: Any) -> str:
     return str(value)
 
 
+def format_statistic(value: Any) -> str:
+    """A test statistic or p-value with three significant digits: 0.0047057 -> ``0.00471``."""
+    number = finite_number(value)
+    return EM_DASH if number is None else f"{number:.3g}"
+
+
 FORMATTERS: dict[str, Callable[[Any], str]] = {
+    "statistic": format_statistic,
     "tonnes": format_tonnes,
     "credits": format_credits,
     "pct": format_pct,
