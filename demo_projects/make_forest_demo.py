@@ -22,8 +22,6 @@ properties and fixed timestamps inside the xlsx (zip) archive.
 from __future__ import annotations
 
 import datetime as dt
-import io
-import zipfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,7 +30,6 @@ from typing import Any
 import numpy as np
 from openpyxl import Workbook
 from openpyxl.worksheet.worksheet import Worksheet
-from openpyxl.writer.excel import ExcelWriter
 
 from verify.atomic import atomic_path
 from verify.factors import (
@@ -42,6 +39,7 @@ from verify.factors import (
     N2ON_TO_N2O,
     fuel_co2_kg_per_litre,
 )
+from verify.results_xlsx import reproducible_xlsx_bytes as xlsx_bytes_with_fixed_dates
 from verify.template import build_template
 
 Record = dict[str, Any]
@@ -674,25 +672,8 @@ def build_demo_workbook(seed: int = SEED) -> Workbook:
 
 
 def reproducible_xlsx_bytes(book: Workbook) -> bytes:
-    """The xlsx bytes with fixed archive timestamps.
-
-    ``Workbook.save`` stamps the current time into the document properties
-    and on every zip member; this writes through openpyxl's ExcelWriter
-    (which keeps the properties as set) and repacks the archive with
-    FIXED_TIMESTAMP on each member.
-    """
-    raw = io.BytesIO()
-    with zipfile.ZipFile(raw, "w", zipfile.ZIP_DEFLATED, allowZip64=True) as archive:
-        ExcelWriter(book, archive).save()
-    fixed = io.BytesIO()
-    stamp = FIXED_TIMESTAMP.timetuple()[:6]
-    with zipfile.ZipFile(raw) as source, zipfile.ZipFile(fixed, "w", zipfile.ZIP_DEFLATED) as target:
-        for info in source.infolist():
-            member = zipfile.ZipInfo(info.filename, date_time=stamp)
-            member.compress_type = zipfile.ZIP_DEFLATED
-            member.external_attr = info.external_attr
-            target.writestr(member, source.read(info.filename))
-    return fixed.getvalue()
+    """The xlsx bytes with FIXED_TIMESTAMP as every date, so two runs give identical files."""
+    return xlsx_bytes_with_fixed_dates(book, FIXED_TIMESTAMP)
 
 
 def write_demo(target: Path = OUTPUT_PATH, seed: int = SEED) -> Path:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import math
+import time
 
 import openpyxl
 import pytest
@@ -142,3 +143,11 @@ def test_output_over_the_input_is_refused(tmp_path):
     cli = runner.invoke(app, ["run", str(path), "--out", str(tmp_path), "--no-pdf"])
     assert cli.exit_code == 2
     assert "refusing to overwrite the input" in cli.output
+
+
+def test_results_workbook_bytes_are_reproducible(tmp_path, result):
+    # openpyxl stamps the clock into the archive; two writes a second apart must still match
+    first = write_outputs(result, tmp_path / "a", pdf=False).xlsx.read_bytes()
+    time.sleep(1.1)
+    second = write_outputs(result, tmp_path / "b", pdf=False).xlsx.read_bytes()
+    assert first == second

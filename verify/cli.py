@@ -54,6 +54,19 @@ def _print_findings(findings: list, err: bool = False) -> None:
         typer.echo(f"{f.severity:<8}{f.location:<24}{f.code:<24}{f.message}", err=err)
 
 
+def _print_finding_digest(findings: list) -> None:
+    """One line per finding code: how many, and where the first ones are."""
+    by_code: dict[tuple[str, str], list[str]] = {}
+    for f in findings:
+        if f.severity != "note":
+            by_code.setdefault((f.severity, f.code), []).append(f.location)
+    for (severity, code), locations in by_code.items():
+        shown = ", ".join(locations[:3]) + (", ..." if len(locations) > 3 else "")
+        typer.echo(f"{severity:<8}{code:<32}{len(locations):>5} at {shown}", err=True)
+    if by_code:
+        typer.echo("every finding, with its message, is in results.json, results.xlsx and summary.pdf", err=True)
+
+
 def _summary_line(findings: list) -> str:
     counts = {s: sum(f.severity == s for f in findings) for s in ("error", "warning", "note")}
     return f"{counts['error']} error(s), {counts['warning']} warning(s), {counts['note']} note(s)"
@@ -79,17 +92,24 @@ def check(
     workbook: Path = typer.Argument(..., help="The project workbook (.xlsx)."),
     as_json: bool = typer.Option(False, "--json", help="Print the findings as JSON."),
 ) -> None:
-    """Validate a workbook and list every problem by cell. Exit 1 when there are errors."""
-    from .workbook import findings_summary, load_workbook
+    """Validate a workbook and list every problem by cell. Exit 1 when there are errors.
 
-    book = load_workbook(workbook)
+    A workbook that passes validation is also computed, so the data-quality
+    findings of the calculation (extrapolated models, implausible growth...)
+    are listed too.
+    """
+    from .engine import run as run_engine
+    from .workbook import findings_summary
+
+    result = run_engine(workbook)
+    summary = findings_summary(result.book, result.findings)
     if as_json:
-        typer.echo(json.dumps(findings_summary(book), indent=2))
+        typer.echo(json.dumps(summary, indent=2))
     else:
-        _print_findings(book.findings)
-        verdict = "ready to run" if book.ok else "fix the errors above"
-        typer.echo(f"{workbook.name}: {_summary_line(book.findings)}; {verdict}")
-    raise typer.Exit(EXIT_OK if book.ok else EXIT_FINDINGS)
+        _print_findings(result.findings)
+        verdict = "ready to run" if summary["ok"] else "fix the errors above"
+        typer.echo(f"{workbook.name}: {_summary_line(result.findings)}; {verdict}")
+    raise typer.Exit(EXIT_OK if summary["ok"] else EXIT_FINDINGS)
 
 
 def _headline(document: dict) -> str:
@@ -117,9 +137,7 @@ def _run_and_write(workbook: Path, out: Path, pdf: bool) -> None:
     except OutputRefused as exc:
         typer.echo(str(exc), err=True)
         raise typer.Exit(EXIT_USAGE)
-    warnings = [f for f in result.findings if f.severity != "note"]
-    if warnings:
-        _print_findings(warnings, err=True)
+    _print_finding_digest(result.findings)
     typer.echo(_headline(result.to_dict()))
     for path in (written.json, written.xlsx, written.pdf):
         if path is not None:
@@ -147,3 +165,40 @@ def demo(
     with resources.as_file(resources.files("verify.demo_projects") / DEMO_WORKBOOK) as workbook:
         typer.echo(f"demo workbook: {workbook}")
         _run_and_write(workbook, out, pdf)
+
+
+@app.command()
+def screen(
+    paths: list[Path] = typer.Argument(..., help="Workbooks, or folders searched recursively for *.xlsx."),
+    out: Path = typer.Option(..., "--out", "-o", help="Folder for portfolio.xlsx, portfolio.json and portfolio.pdf."),
+    jobs: Optional[int] = typer.Option(
+        None, "--jobs", "-j", min=1, help="Worker processes (default: the number of CPUs); 1 runs in this process."
+    ),
+) -> None:
+    """Screen many workbooks side by side: one row per project, no combined score.
+
+    Exit 0 when every workbook was recomputed; 1 when any failed validation, could not be read or
+    made the tool fail (its row says why); 2 when no workbook was found or an output would overwrite one.
+    """
+    import sys
+
+    from .atomic import OutputRefused
+    from .screen import StderrProgress, discover_workbooks, row_summary, write_portfolio
+    from .screen import screen as screen_workbooks
+
+    files = discover_workbooks(paths, exclude=[out])  # never screen a previous portfolio.xlsx
+    if not files:
+        where = "outside the output folder " if discover_workbooks(paths) else ""
+        typer.echo(f"no .xlsx workbook found {where}in the paths given", err=True)
+        raise typer.Exit(EXIT_USAGE)
+    portfolio = screen_workbooks(files, jobs=jobs, progress=StderrProgress(sys.stderr))
+    for row in portfolio.rows:
+        typer.echo(row_summary(row))
+    try:
+        written = write_portfolio(portfolio, out)
+    except OutputRefused as exc:
+        typer.echo(str(exc), err=True)
+        raise typer.Exit(EXIT_USAGE)
+    for path in (written.xlsx, written.json, written.pdf):
+        typer.echo(f"wrote {path}")
+    raise typer.Exit(EXIT_FINDINGS if portfolio.failed else EXIT_OK)

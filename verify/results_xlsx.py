@@ -8,6 +8,9 @@ that a spreadsheet would take for a formula (leading ``=``, ``+``, ``-``,
 from __future__ import annotations
 
 import datetime as dt
+import io
+import re
+import zipfile
 from pathlib import Path
 from typing import Any, Iterable
 
@@ -22,8 +25,11 @@ from .atomic import atomic_path
 HEADER_FONT = Font(bold=True, color="FFFFFF")
 HEADER_FILL = PatternFill("solid", fgColor="2F5D50")
 FORMULA_PREFIXES = ("=", "+", "-", "@")
-# Fixed document dates, so the same result gives the same bytes.
+# Fixed dates, so the same document gives the same bytes: openpyxl stamps the
+# clock on every zip entry and on dcterms:modified whatever the properties say.
 DOCUMENT_TIME = dt.datetime(2000, 1, 1)
+CORE_PROPERTIES = "docProps/core.xml"
+MODIFIED_PROPERTY = re.compile(rb"(<dcterms:modified[^>]*>)[^<]*(</dcterms:modified>)")
 
 TOTAL_LABELS = {
     "gross_removals_tco2e": "Gross removals (tCO2e)",
@@ -120,8 +126,24 @@ def build_results_workbook(document: dict[str, Any]) -> Workbook:
     return book
 
 
+def reproducible_xlsx_bytes(book: Workbook, stamp: dt.datetime = DOCUMENT_TIME) -> bytes:
+    """The .xlsx bytes of ``book`` with ``stamp`` as every date, so equal content gives equal bytes."""
+    saved = io.BytesIO()
+    book.save(saved)
+    fixed = io.BytesIO()
+    modified = stamp.strftime("%Y-%m-%dT%H:%M:%SZ").encode()
+    with zipfile.ZipFile(saved) as source, zipfile.ZipFile(fixed, "w", zipfile.ZIP_DEFLATED) as target:
+        for entry in source.infolist():
+            data = source.read(entry)
+            if entry.filename == CORE_PROPERTIES:
+                data = MODIFIED_PROPERTY.sub(rb"\g<1>" + modified + rb"\g<2>", data)
+            target.writestr(zipfile.ZipInfo(entry.filename, date_time=stamp.timetuple()[:6]), data,
+                            compress_type=zipfile.ZIP_DEFLATED)
+    return fixed.getvalue()
+
+
 def write_results_xlsx(document: dict[str, Any], target: Path, protected: tuple[Path, ...] = ()) -> Path:
-    book = build_results_workbook(document)
+    data = reproducible_xlsx_bytes(build_results_workbook(document))
     with atomic_path(target, protected) as temporary:
-        book.save(temporary)
+        temporary.write_bytes(data)
     return target
