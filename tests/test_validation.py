@@ -6,7 +6,7 @@ import datetime as dt
 
 import pytest
 
-from conftest import minimal_forest, project_rows, table, write_workbook
+from conftest import minimal_forest, project_rows, write_workbook
 from verify.workbook import load_workbook
 
 # Trees headers in contract order: A plot_id, B event, C tree_id, D species,

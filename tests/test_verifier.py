@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from conftest import minimal_forest, minimal_tree_tco2e, project_rows, table, write_workbook
+from conftest import minimal_forest, minimal_tree_tco2e, table, write_workbook
 from verify.checkplots import bias_verdict, within_tolerance
 from verify.engine import run
 from verify.reconciliation import reconcile

@@ -26,16 +26,18 @@ TOTAL_COLOUR = "#2b4c6f"
 DECREASE_COLOUR = "#c0772f"
 INCREASE_COLOUR = "#4d8a6a"
 
-_RC_STYLE = {
-    "svg.hashsalt": SVG_HASH_SALT,
-    "svg.fonttype": "path",
-    "font.family": "DejaVu Sans",
-    "font.size": 7.5,
-    "axes.edgecolor": MUTED,
-    "axes.labelcolor": INK,
-    "xtick.color": INK,
-    "ytick.color": INK,
-}
+def chart_style(svg_hash_salt: str = SVG_HASH_SALT) -> dict[str, object]:
+    """Matplotlib settings of every chart; a fixed hash salt keeps the SVG ids, and so the PDF, reproducible."""
+    return {
+        "svg.hashsalt": svg_hash_salt,
+        "svg.fonttype": "path",
+        "font.family": "DejaVu Sans",
+        "font.size": 7.5,
+        "axes.edgecolor": MUTED,
+        "axes.labelcolor": INK,
+        "xtick.color": INK,
+        "ytick.color": INK,
+    }
 
 
 @dataclass(frozen=True)
@@ -105,7 +107,7 @@ def waterfall_svg(totals: Mapping[str, Any]) -> str:
     from matplotlib.ticker import FuncFormatter
 
     steps = waterfall_steps(totals)
-    with matplotlib.rc_context(_RC_STYLE):
+    with matplotlib.rc_context(chart_style()):
         figure = Figure(figsize=(6.9, 2.9))
         axes = figure.add_axes((0.1, 0.2, 0.88, 0.74))
         running = 0.0
@@ -163,7 +165,7 @@ def check_plot_svg(plots: Sequence[Mapping[str, Any]]) -> str:
         (finite_or_zero(p.get("proponent_tco2e_per_ha")), finite_or_zero(p.get("verifier_tco2e_per_ha")))
         for p in plots
     ]
-    with matplotlib.rc_context(_RC_STYLE):
+    with matplotlib.rc_context(chart_style()):
         figure = Figure(figsize=(3.0, 2.7))
         axes = figure.add_axes((0.2, 0.17, 0.75, 0.78))
         limit = max((max(abs(x), abs(y)) for x, y in pairs), default=0.0) * 1.1 or 1.0

@@ -36,6 +36,7 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import urlsplit
 
+from verify.accounting import TOTAL_KEYS
 from verify.atomic import write_bytes_atomic
 
 TEMPLATE_PACKAGE = "verify.report_templates"
@@ -61,18 +62,7 @@ SERVED_SUFFIXES = {
     ".woff2": "font/woff2",
 }
 
-TOTALS_KEYS = (
-    "gross_removals_tco2e",
-    "baseline_tco2e",
-    "project_emissions_tco2e",
-    "leakage_tco2e",
-    "net_removals_tco2e",
-    "uncertainty_pct",
-    "uncertainty_deduction_tco2e",
-    "buffer_pct",
-    "buffer_tco2e",
-    "issuable_credits",
-)
+TOTALS_KEYS = TOTAL_KEYS
 RECORD_KEYS: dict[str, tuple[str, ...]] = {
     "tool": ("name", "version", "run_date"),
     "input": ("path", "file_name", "sha256"),
@@ -499,7 +489,7 @@ def reproducible_epoch(results: Mapping[str, Any]) -> int:
 
 
 @contextlib.contextmanager
-def _source_date_epoch(seconds: int) -> Iterator[None]:
+def fixed_source_date_epoch(seconds: int) -> Iterator[None]:
     """Set ``SOURCE_DATE_EPOCH`` while rendering, then restore the caller's value.
 
     When weasyprint subsets fonts with fontTools (no HarfBuzz subsetter on the
@@ -526,7 +516,7 @@ def render_summary_pdf(results: dict) -> bytes:
     html, embedded = _render(results, root)
     fetcher = make_url_fetcher(ResourcePolicy(root, embedded))
     document = weasyprint.HTML(string=html, base_url=root.as_uri() + "/", url_fetcher=fetcher)
-    with _source_date_epoch(reproducible_epoch(results)):
+    with fixed_source_date_epoch(reproducible_epoch(results)):
         return document.write_pdf(pdf_identifier=True)
 
 

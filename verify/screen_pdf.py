@@ -12,17 +12,17 @@ imported inside the functions that use them.
 
 from __future__ import annotations
 
-import contextlib
 import datetime as dt
 import io
-import os
 import textwrap
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
+from .charts import GRID, INK, MUTED, chart_style
 from .report_pdf import (
     FORMATTERS,
+    fixed_source_date_epoch,
     ResourcePolicy,
     finite_number,
     make_url_fetcher,
@@ -45,18 +45,8 @@ SEGMENTS = (
     ("uncertainty_deduction_pct_of_gross", "Uncertainty deduction", "#0072B2"),
     ("buffer_pct_of_gross", "Buffer contribution", "#D55E00"),
 )
-INK, MUTED, GRID, REMAINDER = "#1f2a30", "#6b767c", "#d9dee1", "#e4e9ec"
+REMAINDER = "#e4e9ec"
 UNCERTAINTY_COLOUR = "#0072B2"
-_RC_STYLE = {
-    "svg.hashsalt": SVG_HASH_SALT,
-    "svg.fonttype": "path",
-    "font.family": "DejaVu Sans",
-    "font.size": 7.5,
-    "axes.edgecolor": MUTED,
-    "axes.labelcolor": INK,
-    "xtick.color": INK,
-    "ytick.color": INK,
-}
 
 
 # ---------------------------------------------------------------------------
@@ -127,7 +117,7 @@ def deductions_svg(rows: Sequence[Mapping[str, Any]], labels: Sequence[str]) -> 
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch
 
-    with matplotlib.rc_context(_RC_STYLE):
+    with matplotlib.rc_context(chart_style(SVG_HASH_SALT)):
         figure = Figure(figsize=(10.2, _figure_height_in(len(rows)) + 0.35))
         axes = figure.add_axes((0.27, 0.42 / figure.get_figheight(), 0.64, 1 - 0.87 / figure.get_figheight()))
         right_edge, left_edge = 100.0, 0.0
@@ -170,7 +160,7 @@ def uncertainty_svg(rows: Sequence[Mapping[str, Any]], labels: Sequence[str]) ->
 
     values = [finite_number(row.get("uncertainty_pct")) for row in rows]
     top = max([v for v in values if v is not None] + [1.0])
-    with matplotlib.rc_context(_RC_STYLE):
+    with matplotlib.rc_context(chart_style(SVG_HASH_SALT)):
         figure = Figure(figsize=(10.2, _figure_height_in(len(rows))))
         axes = figure.add_axes((0.27, 0.42 / figure.get_figheight(), 0.64, 1 - 0.52 / figure.get_figheight()))
         for y, (row, value) in enumerate(zip(rows, values)):
@@ -252,20 +242,6 @@ def render_portfolio_html(document: Mapping[str, Any]) -> str:
     return html
 
 
-@contextlib.contextmanager
-def _fixed_source_date(seconds: int) -> Iterator[None]:
-    """``SOURCE_DATE_EPOCH`` while weasyprint writes: fontTools stamps subset fonts with it instead of the clock."""
-    previous = os.environ.get("SOURCE_DATE_EPOCH")
-    os.environ["SOURCE_DATE_EPOCH"] = str(seconds)
-    try:
-        yield
-    finally:
-        if previous is None:
-            os.environ.pop("SOURCE_DATE_EPOCH", None)
-        else:
-            os.environ["SOURCE_DATE_EPOCH"] = previous
-
-
 def _epoch_of(run_date: str | None) -> int:
     if not run_date:
         return 0
@@ -282,7 +258,7 @@ def render_portfolio_pdf(document: Mapping[str, Any]) -> bytes:
     fetcher = make_url_fetcher(ResourcePolicy(root, embedded))
     page = weasyprint.HTML(string=html, base_url=root.as_uri() + "/", url_fetcher=fetcher)
     run_date = str((document.get("tool") or {}).get("run_date") or "")
-    with _fixed_source_date(_epoch_of(run_date if _is_iso_date(run_date) else None)):
+    with fixed_source_date_epoch(_epoch_of(run_date if _is_iso_date(run_date) else None)):
         return page.write_pdf(pdf_identifier=True)
 
 
