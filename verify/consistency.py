@@ -153,12 +153,11 @@ def _consecutive_measurements(book: LoadedWorkbook) -> pd.DataFrame:
     """Each tree's record beside its record at the previous event, with the years between."""
     events = event_order(book.table("Plots"))
     rank = {event: index for index, event in enumerate(events)}
-    dates = book.table("Plots").set_index(["plot_id", "event"])["measured_on"]
-    trees = book.table("Trees").dropna(subset=["dbh_cm"]).copy()
-    trees["rank"] = trees["event"].map(rank)
-    trees = trees.dropna(subset=["rank"])
-    trees["measured_on"] = pd.to_datetime(
-        [dates.get((plot, event)) for plot, event in zip(trees["plot_id"], trees["event"])])
+    visits = book.table("Plots")[["plot_id", "event", "measured_on"]].drop_duplicates(["plot_id", "event"])
+    trees = book.table("Trees").dropna(subset=["dbh_cm"])
+    trees = trees.assign(rank=trees["event"].map(rank)).dropna(subset=["rank"])
+    trees = trees.merge(visits, on=["plot_id", "event"], how="left")
+    trees["measured_on"] = pd.to_datetime(trees["measured_on"])
     previous = trees.assign(rank=trees["rank"] + 1)
     pairs = trees.merge(previous, on=["plot_id", "tree_id", "rank"], suffixes=("", "_before"))
     pairs["years"] = (pairs["measured_on"] - pairs["measured_on_before"]).dt.days / 365.25
