@@ -1,7 +1,7 @@
 """Biochar pathway: persistent carbon of the batches applied within the period.
 
 Inputs are the validated ``Batches`` table (workbook contract headers plus an
-int ``row``, the Excel row) and the Project's period. Per batch (accounting
+int ``row``, the worksheet row) and the Project's period. Per batch (accounting
 design, section 1, ``biochar``):
 
     persistent carbon (t C) = dry_mass_t x organic_carbon_pct/100 x F_perm

@@ -23,7 +23,7 @@ class Finding:
 
 
 def cell_ref(sheet: str, column_letter: str, row: int) -> str:
-    """Excel-style address, quoting sheet names that need it (``'My sheet'!A1``)."""
+    """A1-style address, quoting sheet names that need it (``'My sheet'!A1``)."""
     name = sheet if sheet.replace("_", "").isalnum() else "'" + sheet.replace("'", "''") + "'"
     return f"{name}!{column_letter}{row}"
 

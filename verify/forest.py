@@ -2,7 +2,7 @@
 
 Inputs are the validated ``Trees``, ``Species``, ``Allometry`` and ``Plots``
 tables as pandas DataFrames whose columns are the workbook contract headers
-plus an int ``row`` (the Excel row the record came from). Numbers are float
+plus an int ``row`` (the worksheet row the record came from). Numbers are float
 with NaN for blanks. The chain (design note "accounting", section 1):
 AGB from the species' allometric model; BGB = AGB * root_shoot_ratio;
 carbon = (AGB + BGB) * carbon_fraction; CO2e = carbon * 44/12. Dead trees

@@ -1,32 +1,88 @@
-"""Raw reading of a workbook: cached cell values and their addresses, nothing more.
+"""Raw reading of a workbook: stored cell values and their addresses, nothing more.
 
-The file is opened read-only with cached values only (``data_only``), so a
-formula is never evaluated and the input is never written.
+The file is first checked as untrusted (:mod:`verify.safety`: zip bombs,
+encrypted or legacy files, DOCTYPEs...), then opened read-only with stored
+values only (``data_only``): a formula is never evaluated, a macro never
+run, the input never written.  openpyxl parses XML through defusedxml,
+which refuses entity declarations; reading refuses to start without it.
+
+Besides values, each sheet carries what the validation needs to report
+silent losses: whether it is hidden, its merged ranges, and its formula
+cells, split into those with a stored result (used) and those without one
+(a program that does not calculate saved the file; reading them would give
+blanks).  Formula cells are looked for only in sheets whose bytes contain
+a formula element, by a byte scan that visits formulas, not cells; a
+formula of unusual shape hands the sheet to a full XML parse instead.
+
+Bounds that keep a hostile sheet from exhausting time or memory:
+rows past :data:`MAX_ROWS` and columns right of the header (at most
+:data:`MAX_COLUMNS`) are not read.
 """
 
 from __future__ import annotations
 
 import hashlib
+import re
+import warnings
 import zipfile
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import IO, Any
 
-import openpyxl
-from openpyxl.utils.exceptions import InvalidFileException
+from .findings import Finding
+from .safety import FORMULA_TAG, ArchiveScan, PartScan, UnreadableWorkbook, inspect_archive
+
+__all__ = ["MAX_COLUMNS", "MAX_ROWS", "RawBook", "RawSheet", "UnreadableWorkbook", "parse_formula_cells",
+           "read_sheets", "scan_formula_cells", "sha256_of"]
+
+# The largest sheet spreadsheet programs write has 1,048,576 rows (common
+# practice, no source).  A row number beyond it can only come from a crafted
+# file, where a single <row r="999999999"> would otherwise make the reader
+# produce a billion empty rows.
+MAX_ROWS = 1_048_576
+
+# Contract sheets have at most a dozen columns.  Rows are read only as wide
+# as the header (capped here), so a crafted cell at column 16384 in every
+# row cannot blow each row up to 16384 values; a header beyond column 256
+# is not a contract header.
+MAX_COLUMNS = 256
+
+# A key/value sheet whose first row already holds a field has no header to
+# take the width from; its field and value columns are always read.
+MIN_COLUMNS = 2
+
+_MAIN_NS = "{http://schemas.openxmlformats.org/spreadsheetml/2006/main}"
+_SHEET_DATA, _ROW, _CELL = f"{_MAIN_NS}sheetData", f"{_MAIN_NS}row", f"{_MAIN_NS}c"
+_FORMULA, _VALUE = f"{_MAIN_NS}f", f"{_MAIN_NS}v"
+
+
+# (row, index) of formulas without a stored result; per column index, (first row, count) of those with one.
+FormulaCells = tuple[frozenset[tuple[int, int]], dict[int, tuple[int, int]]]
 
 
 @dataclass(frozen=True)
 class RawSheet:
-    """A sheet's header row and its data rows, each row with its Excel row number."""
+    """A sheet's header row and its data rows, each row with its row number.
+
+    Column positions (``index``) are 0-based, as in ``header`` and each row.
+    """
 
     name: str
     header: tuple[Any, ...]
     rows: list[tuple[int, tuple[Any, ...]]]
+    hidden: bool = False
+    merged: tuple[str, ...] = ()  # merged ranges of more than one cell, e.g. "E5:E7"
+    formula_blanks: frozenset[tuple[int, int]] = frozenset()  # (row, index) of formulas without a stored result
+    formula_values: dict[int, tuple[int, int]] = field(default_factory=dict)  # index -> (first row, count) with one
+    formula_results_stale: bool = False  # the workbook asks to be recalculated on opening
 
 
-class UnreadableWorkbook(Exception):
-    """The file is not a workbook this tool can open; the message says why."""
+class RawBook(dict[str, RawSheet]):
+    """The sheets by name, and findings about the file as a whole (such as macros_ignored)."""
+
+    def __init__(self, sheets: dict[str, RawSheet], findings: list[Finding]) -> None:
+        super().__init__(sheets)
+        self.findings = findings
 
 
 def sha256_of(path: Path) -> str:
@@ -41,27 +97,245 @@ def _is_blank(value: Any) -> bool:
     return value is None or (isinstance(value, str) and not value.strip())
 
 
-def read_sheets(path: Path) -> dict[str, RawSheet]:
-    """Every sheet of the workbook, blank rows dropped, row numbers kept."""
+def read_sheets(path: Path) -> RawBook:
+    """Every sheet of the workbook, blank rows dropped, row numbers kept.
+
+    Raises :class:`UnreadableWorkbook` when the file cannot be read at all;
+    everything else is left to validation.
+    """
+    import openpyxl
+
+    path = Path(path)
+    if not openpyxl.DEFUSEDXML:
+        raise UnreadableWorkbook("defusedxml is not installed, so untrusted XML cannot be parsed safely; "
+                                 "install the package's dependencies")
+    scan = inspect_archive(path)
+    # openpyxl's failures on malformed parts are open-ended (ParseError,
+    # KeyError, ValueError, TypeError, zlib.error, defusedxml's refusals...);
+    # a stranger's file must give a finding, never a traceback.
     try:
-        book = openpyxl.load_workbook(path, read_only=True, data_only=True)
-    except (InvalidFileException, zipfile.BadZipFile, KeyError, OSError, ValueError) as exc:
-        raise UnreadableWorkbook(f"cannot open {path.name} as an .xlsx workbook ({exc})") from exc
-    try:
-        return {ws.title: _read_sheet(ws) for ws in book.worksheets}
-    finally:
-        book.close()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
+            try:
+                sheets = {ws.title: _read_sheet(ws, path, scan) for ws in book.worksheets}
+            finally:
+                book.close()
+    except Exception as exc:
+        raise UnreadableWorkbook(_open_failure(path.name, exc)) from exc
+    return RawBook(sheets, _macro_findings(path, scan))
 
 
-def _read_sheet(ws: Any) -> RawSheet:
+def _open_failure(name: str, exc: Exception) -> str:
+    from defusedxml import DefusedXmlException
+
+    cause = exc.__cause__ if isinstance(exc.__cause__, Exception) else exc  # openpyxl wraps parse errors
+    if isinstance(cause, DefusedXmlException):
+        return (f"{name} is refused: its XML declares entities or external references, which "
+                "spreadsheet programs never write and which can carry an entity-expansion attack")
+    detail = (str(cause).strip().splitlines() or [""])[0][:200]
+    return f"cannot open {name} as an .xlsx workbook ({type(cause).__name__}: {detail})"
+
+
+def _macro_findings(path: Path, scan: ArchiveScan) -> list[Finding]:
+    if not scan.macro_parts:
+        return []
+    return [Finding("warning", "macros_ignored", path.name,
+                    f"the workbook contains macros ({', '.join(scan.macro_parts)}); they were not run "
+                    "and only the stored cell values were read")]
+
+
+def _read_sheet(ws: Any, path: Path, scan: ArchiveScan) -> RawSheet:
     # Some writers store a wrong sheet dimension; without this, read-only mode
     # would silently stop at the declared last row.
     ws.reset_dimensions()
-    header: tuple[Any, ...] = ()
-    rows: list[tuple[int, tuple[Any, ...]]] = []
-    for number, values in enumerate(ws.iter_rows(values_only=True), start=1):
-        if number == 1:
-            header = tuple(values)
-        elif not all(_is_blank(v) for v in values):
-            rows.append((number, tuple(values)))
-    return RawSheet(ws.title, header, rows)
+    header = _header(ws)
+    width = max(len(header), MIN_COLUMNS)
+    rows = [
+        (number, values)
+        for number, values in enumerate(
+            ws.iter_rows(min_row=2, max_row=MAX_ROWS, max_col=width, values_only=True), start=2)
+        # count() first: an empty row is dropped without a Python call per cell
+        if values.count(None) != width and not all(_is_blank(v) for v in values)
+    ]
+    part_name = ws._worksheet_path  # openpyxl keeps no public name for a sheet's part
+    part = scan.parts[part_name]
+    blanks, values = _formula_cells(path, part_name) if part.has_formulas else (frozenset(), {})
+    return RawSheet(ws.title, header, rows, hidden=ws.sheet_state != "visible",
+                    merged=_merged_ranges(part), formula_blanks=blanks, formula_values=values,
+                    formula_results_stale=scan.formula_results_stale)
+
+
+def _header(ws: Any) -> tuple[Any, ...]:
+    first_rows = ws.iter_rows(min_row=1, max_row=1, max_col=MAX_COLUMNS, values_only=True)
+    try:
+        header = next(first_rows, ())
+    finally:
+        first_rows.close()
+    last = max((i for i, v in enumerate(header) if not _is_blank(v)), default=-1)
+    return tuple(header[:last + 1])
+
+
+def _merged_ranges(part: PartScan) -> tuple[str, ...]:
+    from openpyxl.utils.cell import range_boundaries
+
+    ranges = []
+    for ref in part.merged:
+        try:
+            min_col, min_row, max_col, max_row = range_boundaries(ref)
+        except (ValueError, TypeError):
+            continue  # not a range; openpyxl's own parse of the part decides on such a file
+        if (min_col, min_row) != (max_col, max_row):
+            ranges.append(ref)
+    return tuple(ranges)
+
+
+def _formula_cells(path: Path, part_name: str) -> FormulaCells:
+    with zipfile.ZipFile(path) as archive:
+        with archive.open(part_name) as stream:
+            found = scan_formula_cells(stream)
+        if found is None:
+            with archive.open(part_name) as stream:
+                found = parse_formula_cells(stream)
+    return found
+
+
+def _has_stored_result(value_text: str | bytes | None, cell_type: str | bytes | None) -> bool:
+    """A formula's result is stored when ``<v>`` holds text, or when the cell is typed
+    as text (``str``, ``inlineStr``): an empty string is then a real result."""
+    return bool(value_text) or cell_type in ("str", "inlineStr", b"str", b"inlineStr")
+
+
+class _Formulas:
+    """Formula cells as they are found: positions without a result, per-column counts with one."""
+
+    def __init__(self) -> None:
+        self.blanks: set[tuple[int, int]] = set()
+        self.values: dict[int, tuple[int, int]] = {}
+
+    def add(self, row: int, column: int, stored: bool) -> None:
+        if row > MAX_ROWS:
+            return
+        if stored:
+            first, count = self.values.get(column - 1, (row, 0))
+            self.values[column - 1] = (first, count + 1)
+        else:
+            self.blanks.add((row, column - 1))
+
+    def result(self) -> FormulaCells:
+        return frozenset(self.blanks), self.values
+
+
+def parse_formula_cells(stream: IO[bytes]) -> FormulaCells:
+    """Formula cells of a sheet part by a full XML parse (the reference for :func:`scan_formula_cells`).
+
+    Returns (row, index) of formulas without a stored result, and per column
+    index the first row and count of those with one.  Cell positions follow
+    openpyxl's rules, including cells without ``r``.
+    """
+    from defusedxml.ElementTree import iterparse
+    from openpyxl.utils.cell import coordinate_to_tuple
+
+    found = _Formulas()
+    row = column = 0
+    sheet_data = None
+    for event, element in iterparse(stream, events=("start", "end")):
+        tag = element.tag
+        if event == "start":
+            if tag == _ROW:
+                row, column = _row_number(element.get("r"), row), 0
+            elif tag == _SHEET_DATA:
+                sheet_data = element
+            continue
+        if tag == _CELL:
+            ref = element.get("r")
+            if ref:
+                cell_row, column = coordinate_to_tuple(ref)
+            else:
+                cell_row, column = row, column + 1
+            if element.find(_FORMULA) is not None:
+                found.add(cell_row, column, _has_stored_result(element.findtext(_VALUE), element.get("t")))
+        elif tag == _ROW and sheet_data is not None:
+            sheet_data.clear()  # rows done with; keeps memory flat on long sheets
+    return found.result()
+
+
+# The byte scan below reads formula cells without parsing every cell: in
+# SpreadsheetML a formula <f> is the first child of its cell <c> (then <v>,
+# the stored result), and in sheetData an <f> occurs only there.  Each
+# formula tag is walked back to its cell tag and forward over <f> and <v>;
+# any formula that does not fit this shape (a CDATA section, a comment, a
+# cell without its "r" address) sends the whole part to the XML parser.
+_NAME = rb"(?:[A-Za-z_][\w.-]*:)?"
+_CELL_TAG = re.compile(rb"<" + _NAME + rb"c(\s[^>]*)?(?<!/)>\s*")
+_FORMULA_ELEMENT = re.compile(rb"<" + _NAME + rb"f(?:\s[^>]*?)?(?:/>|>[^<]*</" + _NAME + rb"f>)\s*")
+_VALUE_ELEMENT = re.compile(rb"<" + _NAME + rb"v(?:\s[^>]*?)?(?:/>|>([^<]*)</" + _NAME + rb"v>)")
+_ADDRESS = re.compile(rb"\sr\s*=\s*[\"']([A-Z]{1,3})([0-9]+)[\"']")
+_CELL_TYPE = re.compile(rb"\st\s*=\s*[\"']([A-Za-z]+)[\"']")
+_END_TAG_NAME = re.compile(_NAME)
+# A row longer than this is not carried whole between chunks; the XML parser takes over.
+_MAX_CARRY_BYTES = 64 << 20
+
+
+def scan_formula_cells(stream: IO[bytes], chunk_bytes: int = 1 << 20) -> FormulaCells | None:
+    """Formula cells of a sheet part from its bytes, or None when the XML parser must decide.
+
+    Same result as :func:`parse_formula_cells`, at the cost of a byte scan
+    plus a few regex steps per formula instead of a parse of every cell.
+    """
+    from openpyxl.utils.cell import column_index_from_string
+
+    found = _Formulas()
+    carry = b""
+    while True:
+        chunk = stream.read(chunk_bytes)
+        buffer = carry + chunk
+        end = _end_tag(buffer, b"sheetData", last=False)
+        if end >= 0 or not chunk:
+            region, carry = (buffer[:end] if end >= 0 else buffer), b""
+        else:
+            cut = _end_tag(buffer, b"row", last=True)
+            if cut < 0:
+                if len(buffer) > _MAX_CARRY_BYTES:
+                    return None
+                carry = buffer
+                continue
+            region, carry = buffer[:cut], buffer[cut:]
+        for match in FORMULA_TAG.finditer(region):
+            formula_start = region.rfind(b"<", 0, match.start())
+            if region[formula_start + 1:formula_start + 2] == b"/":
+                continue  # </x:f>, the end of a prefixed formula already taken
+            cell_start = region.rfind(b"<", 0, formula_start)
+            cell = _CELL_TAG.fullmatch(region, cell_start, formula_start) if cell_start >= 0 else None
+            formula = _FORMULA_ELEMENT.match(region, formula_start)
+            address = _ADDRESS.search(cell.group(1) or b"") if cell else None
+            if not (cell and formula and address):
+                return None
+            value = _VALUE_ELEMENT.match(region, formula.end())
+            cell_type = _CELL_TYPE.search(cell.group(1))
+            found.add(int(address.group(2)), column_index_from_string(address.group(1).decode("ascii")),
+                      _has_stored_result(value and value.group(1), cell_type and cell_type.group(1)))
+        if end >= 0 or not chunk:
+            return found.result()
+
+
+def _end_tag(buffer: bytes, local: bytes, last: bool) -> int:
+    """Position just after the first (or last) end tag ``</local>`` (any prefix) in ``buffer``, or -1."""
+    needle = local + b">"
+    position = buffer.rfind(needle) if last else buffer.find(needle)
+    while position >= 0:
+        opening = buffer.rfind(b"<", 0, position)
+        if opening >= 0 and buffer[opening + 1:opening + 2] == b"/" and \
+                _END_TAG_NAME.fullmatch(buffer, opening + 2, position):
+            return position + len(needle)
+        position = buffer.rfind(needle, 0, position) if last else buffer.find(needle, position + 1)
+    return -1
+
+
+def _row_number(text: str | None, previous: int) -> int:
+    if text is None:
+        return previous + 1
+    number = float(text)
+    if not number.is_integer():
+        raise ValueError(f"{text} is not a valid row number")
+    return int(number)

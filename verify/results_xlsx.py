@@ -1,4 +1,4 @@
-"""results.xlsx: the result document as tables for people who work in Excel.
+"""results.xlsx: the result document as tables for people who work in spreadsheets.
 
 Built fresh from the result document, never by editing the input.  Text
 that a spreadsheet would take for a formula (leading ``=``, ``+``, ``-``,

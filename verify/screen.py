@@ -44,7 +44,7 @@ from .results_xlsx import reproducible_xlsx_bytes
 
 PORTFOLIO_XLSX, PORTFOLIO_JSON, PORTFOLIO_PDF = "portfolio.xlsx", "portfolio.json", "portfolio.pdf"
 WORKBOOK_SUFFIX = ".xlsx"
-EXCEL_LOCK_PREFIX = "~$"  # Excel's owner file beside an open workbook: not a workbook
+LOCK_FILE_PREFIX = "~$"  # a spreadsheet program's lock file beside an open workbook: not a workbook
 REASON_ERRORS_SHOWN = 3
 
 STATUS_OK, STATUS_FAILED, STATUS_CRASHED = "ok", "failed", "crashed"
@@ -289,7 +289,7 @@ def screen_one(path: str, run_date: dt.date) -> dict[str, Any]:
 def discover_workbooks(paths: Iterable[str | Path], exclude: Iterable[str | Path] = ()) -> list[Path]:
     """Files as given and every *.xlsx under each folder (recursively), deduplicated and sorted by path.
 
-    Excel lock files (``~$name.xlsx``) are skipped, and so is anything under an
+    Lock files (``~$name.xlsx``) are skipped, and so is anything under an
     ``exclude`` folder (the output folder, so a second screening does not read
     the first one's portfolio.xlsx).
     """
@@ -302,7 +302,7 @@ def discover_workbooks(paths: Iterable[str | Path], exclude: Iterable[str | Path
         )
         for path in candidates:
             resolved = path.resolve()
-            if path.name.startswith(EXCEL_LOCK_PREFIX) or any(resolved.is_relative_to(e) for e in excluded):
+            if path.name.startswith(LOCK_FILE_PREFIX) or any(resolved.is_relative_to(e) for e in excluded):
                 continue
             found.setdefault(resolved, path)
     return sorted(found.values(), key=lambda p: p.as_posix())

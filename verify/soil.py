@@ -1,7 +1,7 @@
 """Soil pathway: layer stocks of soil organic carbon (SOC), profile stocks, stock change.
 
 Inputs are the validated ``SoilSamples`` table (workbook contract headers plus
-an int ``row``, the Excel row). One *profile* is the layers of one point at
+an int ``row``, the worksheet row). One *profile* is the layers of one point at
 one event. The chain (accounting design, section 1, ``soil``):
 
 - per layer: fine-earth mass (t/ha) = bulk_density_g_cm3 x thickness_cm x

@@ -26,7 +26,7 @@ KEY_FILL = PatternFill("solid", fgColor="E8F0EC")
 
 
 def _validation(column: ColumnSpec, sqref: str) -> DataValidation | None:
-    """An Excel data validation mirroring the column's schema, or None for free text."""
+    """A spreadsheet data validation mirroring the column's schema, or None for free text."""
     if column.kind == "enum":
         rule = DataValidation(type="list", formula1='"' + ",".join(column.enum) + '"', allow_blank=True)
     elif column.kind == "date":

@@ -3,23 +3,66 @@
 Each column is checked against its JSON Schema property (type, format,
 enum, bounds, required), then each sheet's unique keys and its references
 to other sheets.  All problems are collected in one pass; nothing raises.
+
+How cells that a person or another program may have written differently
+are read (each decision has a test in tests/test_hostile.py):
+
+| cell as found                                   | decision                       | finding                          |
+|-------------------------------------------------|--------------------------------|----------------------------------|
+| header with stray spaces, other case, inner     | read                           | note ``header_normalised``       |
+| spaces (" DBH  cm ")                            |                                |                                  |
+| column not in the contract                      | ignored                        | note ``column_ignored`` (with a  |
+|                                                 |                                | "did you mean" for a near miss)  |
+| blank rows between data                         | ignored, row numbers kept      | none                             |
+| text with leading/trailing spaces               | trimmed                        | none                             |
+| number stored as text, point decimal ("12.5",   | read as the number             | note ``number_as_text``, one per |
+| "1e3", "+4")                                    |                                | column: first cell and count     |
+| number with a comma ("12,5", "1,234", "1.234,5")| refused: decimal comma or      | error ``decimal_comma`` at the   |
+|                                                 | thousands separator is a guess | cell                             |
+| other text in a number column ("NaN", "12 %",   | refused                        | error ``wrong_type``             |
+| "twelve"), TRUE/FALSE, a date                   |                                |                                  |
+| whole-number column: decimals, or beyond 2^53   | refused                        | error ``wrong_type``             |
+| date as ISO text "2024-01-31"                   | read (workbook contract)       | none                             |
+| date as any other text ("31/01/2024",           | refused, message names         | error ``wrong_type``             |
+| "2024-1-31", "2024-01-31T00:00")                | YYYY-MM-DD (day/month order    |                                  |
+|                                                 | differs between countries)     |                                  |
+| number in a date column (a date serial shown    | refused, message says to       | error ``wrong_type``             |
+| as a number)                                    | format the cell as a date      |                                  |
+| choice differing only in case ("Live")          | read as the allowed value      | note ``choice_normalised``, one  |
+|                                                 | when exactly one value matches | per column: first cell and count |
+| spreadsheet error value (#N/A, #DIV/0!, ...)    | refused in every column kind   | error ``error_value``            |
+| formula with a stored result                    | the stored result is read      | note ``formula_value_used``, one |
+|                                                 |                                | per sheet                        |
+| the same, in a file that asks to be recalculated| read, but flagged: the results | warning ``formula_values_stale``,|
+| on opening (fullCalcOnLoad)                     | may be a library's placeholders| one per sheet                    |
+| formula without a stored result                 | refused (it would read blank)  | error ``formula_without_value``  |
+|                                                 |                                | at each cell                     |
+| merged range touching a contract column         | refused (only its first cell   | error ``merged_cells`` at the    |
+|                                                 | keeps a value)                 | range's top-left cell            |
+| contract sheet hidden                           | read                           | note ``hidden_sheet``            |
+
+Formula and merge findings concern contract columns only: a helper
+column of the user's own never blocks a run.
 """
 
 from __future__ import annotations
 
 import datetime as dt
+import difflib
 import math
+import re
 from dataclasses import dataclass
 from typing import Any, Callable
 
 import pandas as pd
 from openpyxl.utils import get_column_letter
+from openpyxl.utils.cell import range_boundaries
 
 from .findings import Finding, cell_ref
 from .reader import RawSheet
 from .schema import ColumnSpec, SheetSpec
 
-ROW = "row"  # column of every typed table holding the Excel row number
+ROW = "row"  # column of every typed table holding the worksheet row number
 
 
 class _Invalid:
@@ -31,7 +74,7 @@ INVALID = _Invalid()
 
 @dataclass
 class TypedSheet:
-    """A validated table: typed values, the Excel row of each record, the letter of each column."""
+    """A validated table: typed values, the worksheet row of each record, the letter of each column."""
 
     spec: SheetSpec
     frame: pd.DataFrame
@@ -44,6 +87,24 @@ class TypedSheet:
 
 # ---------------------------------------------------------------- cell types
 
+# Error values a formula cell can hold (ECMA-376 Part 1, cell type "e": the
+# seven classic ones; the others are written by newer spreadsheet programs;
+# list from memory, check against the source).  A stored error is never data.
+ERROR_VALUES = frozenset({
+    "#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A",
+    "#GETTING_DATA", "#SPILL!", "#CALC!", "#FIELD!", "#BLOCKED!", "#UNKNOWN!", "#CONNECT!", "#BUSY!",
+})
+
+# A number written as text with a point as decimal mark; ASCII digits only
+# (float() would also take "nan", "inf", "1_000" and other scripts' digits).
+_NUMBER_TEXT = re.compile(r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
+# Digits with a comma and perhaps points or spaces: "12,5", "1,234", "1.234,5", "1 234,5".
+_COMMA_NUMBER = re.compile(r"[+-]?[0-9][0-9., '\u00a0\u202f]*")
+_ISO_DATE = re.compile(r"[0-9]{4}-[0-9]{2}-[0-9]{2}")
+# Whole numbers beyond this are not exact as floats (IEEE 754 binary64, 53-bit significand).
+_LARGEST_EXACT_INTEGER = 2 ** 53
+
+
 def _as_text(value: Any) -> str:
     if isinstance(value, float) and value.is_integer():
         return str(int(value))
@@ -54,16 +115,29 @@ def _as_text(value: Any) -> str:
     return str(value).strip()
 
 
+def _as_string(value: Any) -> str | _Invalid:
+    text = _as_text(value)
+    return INVALID if text in ERROR_VALUES else text
+
+
 def _as_number(value: Any) -> float | _Invalid:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
+    if isinstance(value, bool):
         return INVALID
-    number = float(value)
+    if isinstance(value, (int, float)):
+        try:
+            number = float(value)
+        except OverflowError:  # an int too large for a float
+            return INVALID
+    elif isinstance(value, str) and _NUMBER_TEXT.fullmatch(value.strip()):
+        number = float(value)
+    else:
+        return INVALID
     return number if math.isfinite(number) else INVALID
 
 
 def _as_integer(value: Any) -> int | _Invalid:
     number = _as_number(value)
-    if isinstance(number, _Invalid) or not number.is_integer():
+    if isinstance(number, _Invalid) or not number.is_integer() or abs(number) > _LARGEST_EXACT_INTEGER:
         return INVALID
     return int(number)
 
@@ -73,7 +147,7 @@ def _as_date(value: Any) -> dt.date | _Invalid:
         return value.date()
     if isinstance(value, dt.date):
         return value
-    if isinstance(value, str):
+    if isinstance(value, str) and _ISO_DATE.fullmatch(value.strip()):
         try:
             return dt.date.fromisoformat(value.strip())
         except ValueError:
@@ -82,16 +156,25 @@ def _as_date(value: Any) -> dt.date | _Invalid:
 
 
 def _as_choice(column: ColumnSpec) -> Callable[[Any], str | _Invalid]:
+    exact = frozenset(column.enum)
+    by_case: dict[str, list[str]] = {}
+    for choice in column.enum:
+        by_case.setdefault(choice.casefold(), []).append(choice)
+    # Only a case-insensitive match to exactly one allowed value is taken.
+    unique = {folded: choices[0] for folded, choices in by_case.items() if len(choices) == 1}
+
     def convert(value: Any) -> str | _Invalid:
         text = _as_text(value)
-        return text if text in column.enum else INVALID
+        if text in exact:
+            return text
+        return unique.get(text.casefold(), INVALID)
     return convert
 
 
 def converter(column: ColumnSpec) -> Callable[[Any], Any]:
     if column.kind == "enum":
         return _as_choice(column)
-    return {"string": _as_text, "number": _as_number, "integer": _as_integer, "date": _as_date}[column.kind]
+    return {"string": _as_string, "number": _as_number, "integer": _as_integer, "date": _as_date}[column.kind]
 
 
 _KIND_WORDS = {
@@ -109,11 +192,34 @@ def _describe(value: Any) -> str:
 
 def type_message(column: ColumnSpec, value: Any) -> tuple[str, str]:
     """(code, message) for a value that failed its column's type or choice check."""
+    text = value.strip() if isinstance(value, str) else None
+    if text in ERROR_VALUES:
+        return "error_value", (
+            f"{column.name} holds the spreadsheet error {text}; correct the formula that "
+            "produced it, or enter the value"
+        )
     if column.kind == "enum":
         return "unknown_choice", (
             f"{column.name} is {_describe(value)}; it must be one of: {', '.join(column.enum)}"
         )
-    return "wrong_type", f"{column.name} must be {_KIND_WORDS[column.kind]}, found {_describe(value)}"
+    numeric = column.kind in ("number", "integer")
+    if numeric and text is not None and "," in text and _COMMA_NUMBER.fullmatch(text):
+        return "decimal_comma", (
+            f"{column.name} is {_describe(value)}: a comma may be a decimal comma or a thousands "
+            "separator, so it is not guessed; enter the number with a point as decimal mark and "
+            "no thousands separator (e.g. 1234.5)"
+        )
+    message = f"{column.name} must be {_KIND_WORDS[column.kind]}, found {_describe(value)}"
+    if numeric and text is not None and text.endswith("%"):
+        message += "; enter percent columns as plain numbers (12.5 means 12.5 %)"
+    elif column.kind == "integer" and not isinstance(_as_number(value), _Invalid):
+        message += f" (with no decimals, at most {_LARGEST_EXACT_INTEGER:,} in size)"
+    elif column.kind == "date" and text is not None:
+        message += ("; write dates as date cells or as text YYYY-MM-DD (e.g. 2024-01-31): "
+                    "other layouts are not guessed, as day and month order differ between countries")
+    elif column.kind == "date" and not isinstance(_as_number(value), _Invalid):
+        message += "; it is a number: format the cell as a date"
+    return "wrong_type", message
 
 
 def range_problem(column: ColumnSpec, value: Any) -> str | None:
@@ -135,12 +241,26 @@ def range_problem(column: ColumnSpec, value: Any) -> str | None:
     return None
 
 
+def _is_bounded(column: ColumnSpec) -> bool:
+    if column.kind == "string":
+        return column.max_length is not None
+    return column.kind in ("number", "integer") and any(
+        bound is not None for bound in (column.minimum, column.exclusive_minimum,
+                                        column.maximum, column.exclusive_maximum))
+
+
+def _is_blank(raw: Any) -> bool:
+    return raw is None or (isinstance(raw, str) and not raw.strip())
+
+
+def _missing(column: ColumnSpec, where: str) -> Finding:
+    return Finding("error", "missing_value", where, f"{column.name} is required")
+
+
 def check_value(column: ColumnSpec, raw: Any, where: str) -> tuple[Any, list[Finding]]:
     """Typed value of one cell and the findings it raises (blank gives None)."""
-    if raw is None or (isinstance(raw, str) and not raw.strip()):
-        if column.required:
-            return None, [Finding("error", "missing_value", where, f"{column.name} is required")]
-        return None, []
+    if _is_blank(raw):
+        return None, [_missing(column, where)] if column.required else []
     value = converter(column)(raw)
     if isinstance(value, _Invalid):
         code, message = type_message(column, raw)
@@ -148,13 +268,32 @@ def check_value(column: ColumnSpec, raw: Any, where: str) -> tuple[Any, list[Fin
     problem = range_problem(column, value)
     if problem:
         return None, [Finding("error", "out_of_range", where, problem)]
+    if isinstance(raw, str) and column.kind in ("number", "integer"):
+        return value, [_text_number_note(column, where, 1)]
+    if isinstance(raw, str) and column.kind == "enum" and raw.strip() != value:
+        return value, [_choice_note(column, where, raw, value, 1)]
     return value, []
+
+
+def _text_number_note(column: ColumnSpec, first: str, count: int) -> Finding:
+    cells = "1 cell holds" if count == 1 else f"{count:,} cells hold"
+    return Finding("note", "number_as_text", first,
+                   f"{column.name}: {cells} a number stored as text (first at {first}), read as "
+                   "the number; give the cells a number format to clear this note")
+
+
+def _choice_note(column: ColumnSpec, first: str, raw: str, value: str, count: int) -> Finding:
+    cells = "1 cell matches" if count == 1 else f"{count:,} cells match"
+    return Finding("note", "choice_normalised", first,
+                   f"{column.name}: {cells} an allowed value only when case is ignored "
+                   f"(first {raw.strip()!r} at {first}, read as {value!r}); allowed: {', '.join(column.enum)}")
 
 
 # ---------------------------------------------------------------- headers
 
 def normalise_header(text: Any) -> str:
-    return "" if text is None else str(text).strip().lower().replace(" ", "_")
+    """Header text as a contract name: trimmed, lower case, runs of spaces as one underscore."""
+    return "" if text is None else "_".join(str(text).split()).lower()
 
 
 def locate_columns(spec: SheetSpec, raw: RawSheet) -> tuple[dict[str, int], list[Finding]]:
@@ -164,9 +303,12 @@ def locate_columns(spec: SheetSpec, raw: RawSheet) -> tuple[dict[str, int], list
     known = {c.name: c for c in spec.columns}
     for index, text in enumerate(raw.header):
         key = normalise_header(text)
-        if key not in known:
+        if not key:
             continue
         where = cell_ref(spec.name, get_column_letter(index + 1), 1)
+        if key not in known:
+            findings.append(_ignored_column(spec, text, key, where))
+            continue
         if key in positions:
             findings.append(Finding("error", "duplicate_column", where,
                                     f"column {key} appears twice in the header row; keep one"))
@@ -185,6 +327,77 @@ def locate_columns(spec: SheetSpec, raw: RawSheet) -> tuple[dict[str, int], list
     return positions, findings
 
 
+def _ignored_column(spec: SheetSpec, text: Any, key: str, where: str) -> Finding:
+    near = difflib.get_close_matches(key, spec.headers, n=1, cutoff=0.8)
+    hint = f"; did you mean {near[0]}?" if near else ""
+    return Finding("note", "column_ignored", where,
+                   f"column {str(text).strip()!r} is not part of the {spec.name} sheet and is ignored{hint}")
+
+
+# ---------------------------------------------------------------- how the sheet was stored
+
+def sheet_read_findings(sheet: str, raw: RawSheet, columns: dict[int, str]) -> list[Finding]:
+    """Findings about how ``raw`` was stored: hidden, formulas, merged ranges.
+
+    ``columns`` maps the index of each contract column found to its name;
+    formulas and merged ranges elsewhere are the user's own business.
+    """
+    findings: list[Finding] = []
+    if raw.hidden:
+        findings.append(Finding("note", "hidden_sheet", sheet,
+                                f"the {sheet} sheet is hidden; it was read like any other sheet"))
+    findings.extend(_formula_findings(sheet, raw, columns))
+    findings.extend(_merged_findings(sheet, raw, columns))
+    return findings
+
+
+def _formula_findings(sheet: str, raw: RawSheet, columns: dict[int, str]) -> list[Finding]:
+    findings = []
+    used = [(first, index, count) for index, (first, count) in raw.formula_values.items() if index in columns]
+    if used:
+        first, index, _ = min(used)
+        total = sum(count for _, _, count in used)
+        where = cell_ref(sheet, get_column_letter(index + 1), first)
+        if raw.formula_results_stale:
+            findings.append(Finding(
+                "warning", "formula_values_stale", where,
+                f"{total:,} cell(s) of {sheet} hold formulas (first at {where}) and the file asks to be "
+                "recalculated when opened, so their stored results may be placeholders written by a program "
+                "that does not calculate. Open and save the file in a spreadsheet program that calculates, "
+                "or replace the formulas by their values (paste values)"))
+        else:
+            findings.append(Finding(
+                "note", "formula_value_used", where,
+                f"{total:,} cell(s) of {sheet} hold formulas (first at {where}); the results stored by the "
+                "program that last calculated them were read, not recalculated"))
+    for row, index in sorted(raw.formula_blanks):
+        if index not in columns:
+            continue
+        findings.append(Finding(
+            "error", "formula_without_value", cell_ref(sheet, get_column_letter(index + 1), row),
+            f"{columns[index]} is a formula with no stored result: the file was saved by a program that "
+            "does not calculate formulas. Open it in a spreadsheet program that calculates and save it, "
+            "or replace the formulas by their values (paste values)",
+        ))
+    return findings
+
+
+def _merged_findings(sheet: str, raw: RawSheet, columns: dict[int, str]) -> list[Finding]:
+    findings = []
+    for ref in raw.merged:
+        min_col, min_row, max_col, _ = range_boundaries(ref)
+        names = [name for index, name in sorted(columns.items()) if min_col <= index + 1 <= max_col]
+        if not names:
+            continue
+        where = cell_ref(sheet, get_column_letter(min_col), min_row)
+        findings.append(Finding(
+            "error", "merged_cells", where,
+            f"cells {ref} are merged (columns {', '.join(names)}): only {where} keeps a value, the other "
+            "cells read as blank. Unmerge them and fill in every cell",
+        ))
+    return findings
+
+
 # ---------------------------------------------------------------- tables
 
 _DTYPES = {"number": "float64", "integer": "Int64"}
@@ -196,30 +409,69 @@ def _empty_frame(spec: SheetSpec) -> pd.DataFrame:
     return frame
 
 
+def _type_column(sheet: str, column: ColumnSpec, index: int, raw: RawSheet) -> tuple[list[Any], list[Finding]]:
+    """Typed values of one column, its cell findings, and one note per kind of tolerated spelling."""
+    letter = get_column_letter(index + 1)
+    convert = converter(column)
+    bounded = _is_bounded(column)
+    numeric = column.kind in ("number", "integer")
+    choice = column.kind == "enum"
+    values: list[Any] = []
+    findings: list[Finding] = []
+    as_text: list[int] = []  # rows of numbers stored as text
+    recased: list[tuple[int, str, str]] = []  # (row, raw, value) of choices read despite their case
+    for number, cells in raw.rows:
+        value = cells[index] if index < len(cells) else None
+        if value is None or (isinstance(value, str) and not value.strip()):
+            values.append(None)
+            if column.required and (number, index) not in raw.formula_blanks:
+                findings.append(_missing(column, cell_ref(sheet, letter, number)))
+            continue
+        typed = convert(value)
+        if typed is INVALID:
+            code, message = type_message(column, value)
+            findings.append(Finding("error", code, cell_ref(sheet, letter, number), message))
+            values.append(None)
+            continue
+        if bounded:
+            problem = range_problem(column, typed)
+            if problem:
+                findings.append(Finding("error", "out_of_range", cell_ref(sheet, letter, number), problem))
+                values.append(None)
+                continue
+        if isinstance(value, str):
+            if numeric:
+                as_text.append(number)
+            elif choice and value.strip() != typed:
+                recased.append((number, value, typed))
+        values.append(typed)
+    if as_text:
+        findings.append(_text_number_note(column, cell_ref(sheet, letter, as_text[0]), len(as_text)))
+    if recased:
+        row, first_raw, first_value = recased[0]
+        findings.append(_choice_note(column, cell_ref(sheet, letter, row), first_raw, first_value, len(recased)))
+    return values, findings
+
+
 def type_table(spec: SheetSpec, raw: RawSheet) -> tuple[TypedSheet, list[Finding]]:
     """Typed DataFrame of a table sheet (contract columns + ``row``) and its cell findings."""
     positions, findings = locate_columns(spec, raw)
+    findings.extend(sheet_read_findings(spec.name, raw, {index: name for name, index in positions.items()}))
     letters = {name: get_column_letter(index + 1) for name, index in positions.items()}
-    data: dict[str, list[Any]] = {c.name: [] for c in spec.columns}
-    row_numbers = [number for number, _ in raw.rows]
+    data: dict[str, list[Any]] = {}
     for column in spec.columns:
         index = positions.get(column.name)
-        letter = letters.get(column.name)
-        values = data[column.name]
-        for number, cells in raw.rows:
-            if index is None:
-                values.append(None)
-                continue
-            raw_value = cells[index] if index < len(cells) else None
-            value, problems = check_value(column, raw_value, cell_ref(spec.name, letter, number))
-            values.append(value)
-            findings.extend(problems)
+        if index is None:
+            data[column.name] = [None] * len(raw.rows)
+            continue
+        data[column.name], problems = _type_column(spec.name, column, index, raw)
+        findings.extend(problems)
     if not raw.rows:
         return TypedSheet(spec, _empty_frame(spec), letters), findings
     frame = pd.DataFrame({
         c.name: pd.Series(data[c.name], dtype=_DTYPES.get(c.kind, "object")) for c in spec.columns
     })
-    frame[ROW] = row_numbers
+    frame[ROW] = [number for number, _ in raw.rows]
     return TypedSheet(spec, frame, letters), findings
 
 
@@ -270,7 +522,7 @@ def reference_findings(sheet: TypedSheet, sheets: dict[str, TypedSheet]) -> list
 def read_key_values(spec: SheetSpec, raw: RawSheet, pathway_hint: str | None = None
                     ) -> tuple[dict[str, Any], dict[str, int], list[Finding]]:
     """Typed fields of a key/value sheet with defaults applied, the row of each field, findings."""
-    findings: list[Finding] = []
+    findings = sheet_read_findings(spec.name, raw, {0: spec.key_header, 1: spec.value_header})
     known = {c.name: c for c in spec.columns}
     values: dict[str, Any] = {}
     rows: dict[str, int] = {}
@@ -282,8 +534,9 @@ def read_key_values(spec: SheetSpec, raw: RawSheet, pathway_hint: str | None = N
         key = normalise_header(cells[0] if cells else None)
         raw_value = cells[1] if len(cells) > 1 else None
         if not key:
-            findings.append(Finding("error", "missing_value", cell_ref(spec.name, "A", number),
-                                    "a value is given without a field name in column A"))
+            if (number, 0) not in raw.formula_blanks:
+                findings.append(Finding("error", "missing_value", cell_ref(spec.name, "A", number),
+                                        "a value is given without a field name in column A"))
             continue
         if key not in known:
             findings.append(Finding("warning", "unknown_field", cell_ref(spec.name, "A", number),
@@ -294,6 +547,8 @@ def read_key_values(spec: SheetSpec, raw: RawSheet, pathway_hint: str | None = N
                                     f"field {key} appears again; first at row {rows[key]}"))
             continue
         rows[key] = number
+        if _is_blank(raw_value) and (number, 1) in raw.formula_blanks:
+            continue  # reported as formula_without_value
         value, problems = check_value(known[key], raw_value, cell_ref(spec.name, "B", number))
         findings.extend(problems)
         if value is not None:

@@ -110,6 +110,7 @@ def load_workbook(path: str | Path) -> LoadedWorkbook:
     except UnreadableWorkbook as exc:
         loaded.findings.append(Finding("error", "not_a_workbook", path.name, str(exc)))
         return loaded
+    loaded.findings.extend(raw.findings)
     loaded.project, _, findings = _read_project(raw)
     loaded.findings.extend(findings)
     pathway = loaded.project.get("pathway")
