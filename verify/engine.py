@@ -30,6 +30,7 @@ from .accounting import (
 from .consistency import event_order
 from .findings import Finding, has_errors
 from .pathway import PathwayEstimate
+from .reader import cyclic_gc_paused
 from .reconciliation import reconcile
 from .workbook import LoadedWorkbook, load_workbook
 
@@ -228,4 +229,5 @@ def _tolerances(project: dict[str, Any]) -> checkplots.Tolerances:
 
 def run(path: str | Path, run_date: dt.date | None = None) -> RunResult:
     """Validate and compute the workbook at ``path``; never modifies it."""
-    return compute(load_workbook(path), run_date)
+    with cyclic_gc_paused():  # the tables built are large and hold no reference cycles
+        return compute(load_workbook(path), run_date)

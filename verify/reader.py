@@ -1,10 +1,24 @@
 """Raw reading of a workbook: stored cell values and their addresses, nothing more.
 
 The file is first checked as untrusted (:mod:`verify.safety`: zip bombs,
-encrypted or legacy files, DOCTYPEs...), then opened read-only with stored
-values only (``data_only``): a formula is never evaluated, a macro never
-run, the input never written.  openpyxl parses XML through defusedxml,
-which refuses entity declarations; reading refuses to start without it.
+encrypted or legacy files, DOCTYPEs...), then read with stored values
+only: a formula is never evaluated, a macro never run, the input never
+written.
+
+Two readers give the same values.  Sheets whose cells the safety scan saw
+in the plain shape (every cell addressed, within columns A-Z and rows below
+1,000,000) and without stored error values are read by python-calamine, a
+compiled reader (about 30x faster than openpyxl on a 100,000-row sheet);
+it allocates the rectangle from A1 to the last non-empty cell, which that
+shape bounds (at most 26 x 999,999 cells).  Any
+other sheet (a crafted far address, cells without addresses, helper columns
+beyond Z, error cells, which calamine reads as blanks) is read by openpyxl in
+read-only mode, which parses XML through defusedxml (it refuses entity
+declarations; reading refuses to start without it).  The sheet list, order
+and visibility come from openpyxl's parse of the workbook part either way.
+calamine reads a date cell as ``datetime.date`` where openpyxl gives a
+``datetime.datetime`` at midnight, and whole numbers as floats; validation
+reads both alike.
 
 Besides values, each sheet carries what the validation needs to report
 silent losses: whether it is hidden, its merged ranges, and its formula
@@ -21,19 +35,21 @@ rows past :data:`MAX_ROWS` and columns right of the header (at most
 
 from __future__ import annotations
 
+import gc
 import hashlib
 import re
 import warnings
 import zipfile
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any
+from typing import IO, Any, Iterator
 
 from .findings import Finding
 from .safety import FORMULA_TAG, ArchiveScan, PartScan, UnreadableWorkbook, inspect_archive
 
-__all__ = ["MAX_COLUMNS", "MAX_ROWS", "RawBook", "RawSheet", "UnreadableWorkbook", "parse_formula_cells",
-           "read_sheets", "scan_formula_cells", "sha256_of"]
+__all__ = ["MAX_COLUMNS", "MAX_ROWS", "RawBook", "RawSheet", "UnreadableWorkbook", "cyclic_gc_paused",
+           "parse_formula_cells", "read_sheets", "scan_formula_cells", "sha256_of"]
 
 # The largest sheet spreadsheet programs write has 1,048,576 rows (common
 # practice, no source).  A row number beyond it can only come from a crafted
@@ -110,20 +126,74 @@ def read_sheets(path: Path) -> RawBook:
         raise UnreadableWorkbook("defusedxml is not installed, so untrusted XML cannot be parsed safely; "
                                  "install the package's dependencies")
     scan = inspect_archive(path)
-    # openpyxl's failures on malformed parts are open-ended (ParseError,
-    # KeyError, ValueError, TypeError, zlib.error, defusedxml's refusals...);
-    # a stranger's file must give a finding, never a traceback.
+    # The readers' failures on malformed parts are open-ended (ParseError,
+    # KeyError, ValueError, TypeError, zlib.error, defusedxml's refusals,
+    # calamine's errors...); a stranger's file must give a finding, never a traceback.
     try:
-        with warnings.catch_warnings():
+        with warnings.catch_warnings(), cyclic_gc_paused():
             warnings.simplefilter("ignore")
-            book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
-            try:
-                sheets = {ws.title: _read_sheet(ws, path, scan) for ws in book.worksheets}
-            finally:
-                book.close()
+            sheets = _read_all(path, scan)
     except Exception as exc:
         raise UnreadableWorkbook(_open_failure(path.name, exc)) from exc
     return RawBook(sheets, _macro_findings(path, scan))
+
+
+@contextmanager
+def cyclic_gc_paused() -> Iterator[None]:
+    """Pause the cyclic garbage collector (reference counting still frees memory).
+
+    Reading and validating build millions of lists and tuples and no reference cycles; the
+    collector would walk all of them again at every generation threshold (measured: it triples
+    the time of calamine's conversion to Python values on a 500,000-row sheet)."""
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if enabled:
+            gc.enable()
+
+
+def _sheet_entries(path: Path) -> list[tuple[str, str, str]]:
+    """(title, state, part name) of each worksheet, in workbook order, as openpyxl lists them."""
+    from openpyxl.reader.excel import ExcelReader
+
+    excel = ExcelReader(path, read_only=True, data_only=True, keep_links=False)
+    try:
+        excel.read_manifest()
+        excel.read_workbook()
+        return [(sheet.name, sheet.state or "visible", rel.target) for sheet, rel in excel.parser.find_sheets()
+                if rel.target in excel.valid_files and "chartsheet" not in rel.Type]
+    finally:
+        excel.archive.close()
+
+
+def _read_all(path: Path, scan: ArchiveScan) -> dict[str, RawSheet]:
+    import openpyxl
+    import python_calamine
+
+    sheets: dict[str, RawSheet] = {}
+    fast_book = slow_book = None
+    try:
+        for title, state, part_name in _sheet_entries(path):
+            part = scan.parts.get(part_name)
+            if part is not None and part.plain_cells and not part.has_error_cells:
+                fast_book = fast_book or python_calamine.CalamineWorkbook.from_path(str(path))
+                header, rows = _calamine_values(fast_book.get_sheet_by_name(title).to_python(skip_empty_area=False))
+            else:
+                if slow_book is None:
+                    slow_book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
+                header, rows = _openpyxl_values(slow_book[title])
+            blanks, values = _formula_cells(path, part_name) if part and part.has_formulas else (frozenset(), {})
+            sheets[title] = RawSheet(title, header, rows, hidden=state != "visible",
+                                     merged=_merged_ranges(part) if part else (), formula_blanks=blanks,
+                                     formula_values=values, formula_results_stale=scan.formula_results_stale)
+    finally:
+        if fast_book is not None:
+            fast_book.close()
+        if slow_book is not None:
+            slow_book.close()
+    return sheets
 
 
 def _open_failure(name: str, exc: Exception) -> str:
@@ -145,7 +215,28 @@ def _macro_findings(path: Path, scan: ArchiveScan) -> list[Finding]:
                     "and only the stored cell values were read")]
 
 
-def _read_sheet(ws: Any, path: Path, scan: ArchiveScan) -> RawSheet:
+def _calamine_values(grid: list[list[Any]]) -> tuple[tuple[Any, ...], list[tuple[int, tuple[Any, ...]]]]:
+    """Header and non-blank rows of a calamine grid (list index + 1 is the row number, A1 first).
+
+    calamine gives an empty cell as ""; it becomes None, as openpyxl reads it.
+    """
+    header = _trim_header(tuple(None if v == "" else v for v in grid[0][:MAX_COLUMNS]) if grid else ())
+    width = max(len(header), MIN_COLUMNS)
+    rows = []
+    for number, cells in enumerate(grid[1:MAX_ROWS], start=2):
+        values = cells[:width]
+        if "" in values:  # a C-level scan: full rows skip the per-cell pass
+            values = [None if v == "" else v for v in values]
+        if len(values) < width:
+            values += [None] * (width - len(values))
+        first = values[0]
+        if (first is None or (type(first) is str and not first.strip())) and all(_is_blank(v) for v in values):
+            continue
+        rows.append((number, tuple(values)))
+    return header, rows
+
+
+def _openpyxl_values(ws: Any) -> tuple[tuple[Any, ...], list[tuple[int, tuple[Any, ...]]]]:
     # Some writers store a wrong sheet dimension; without this, read-only mode
     # would silently stop at the declared last row.
     ws.reset_dimensions()
@@ -158,12 +249,7 @@ def _read_sheet(ws: Any, path: Path, scan: ArchiveScan) -> RawSheet:
         # count() first: an empty row is dropped without a Python call per cell
         if values.count(None) != width and not all(_is_blank(v) for v in values)
     ]
-    part_name = ws._worksheet_path  # openpyxl keeps no public name for a sheet's part
-    part = scan.parts[part_name]
-    blanks, values = _formula_cells(path, part_name) if part.has_formulas else (frozenset(), {})
-    return RawSheet(ws.title, header, rows, hidden=ws.sheet_state != "visible",
-                    merged=_merged_ranges(part), formula_blanks=blanks, formula_values=values,
-                    formula_results_stale=scan.formula_results_stale)
+    return header, rows
 
 
 def _header(ws: Any) -> tuple[Any, ...]:
@@ -172,6 +258,10 @@ def _header(ws: Any) -> tuple[Any, ...]:
         header = next(first_rows, ())
     finally:
         first_rows.close()
+    return _trim_header(header)
+
+
+def _trim_header(header: tuple[Any, ...]) -> tuple[Any, ...]:
     last = max((i for i, v in enumerate(header) if not _is_blank(v)), default=-1)
     return tuple(header[:last + 1])
 

@@ -20,7 +20,10 @@ It also reports, per part, what a byte scan can see cheaply: whether the
 part holds formula elements (``<f>``) and which merged ranges it declares
 (``<mergeCell ref=...>``), so the reader parses a sheet a second time only
 when it holds formulas, and learns merged ranges that read-only parsing
-does not expose.
+does not expose; whether every cell is addressed in the plain shape
+``<c r="A1"...`` within columns A-Z and rows below 1,000,000, which bounds
+the rectangle the fast value reader allocates (see :mod:`verify.reader`);
+and whether any cell may hold a stored error value (``t="e"``).
 
 Why byte scans are trustworthy here: in XML text content ``<`` is always
 escaped, so a ``<`` followed by a name is markup; this holds for every
@@ -103,6 +106,13 @@ _SAFE_ENCODINGS = frozenset({"utf-8", "utf8", "us-ascii", "ascii"})
 FORMULA_TAG = re.compile(rb"f(?<=[<:]f)[\s/>]")
 _MERGE_TAG = re.compile(rb"mergeCell(?<=[<:]mergeCell)\s[^>]*?\bref\s*=\s*[\"']([^\"']*)[\"']")
 _DOCTYPE = b"<!DOCTYPE"
+# A cell start tag that is not in the plain shape <c r="A1"...: no address, another attribute
+# first, a column beyond Z or a row of seven digits or more.  A cell tag with a namespace prefix
+# (<x:c ...>) is caught by the second pattern (so is the text ":c ", which only costs speed).
+_UNPLAIN_CELL = re.compile(rb'<c(?![\w.:-])(?! r="[A-Z][0-9]{1,6}")')
+_PREFIXED_CELL = re.compile(rb":c[\s/>]")
+# A cell typed as a stored error value (ECMA-376 Part 1, ST_CellType "e").
+_ERROR_TYPE = re.compile(rb"\st\s*=\s*[\"']e[\"']")
 # The workbook part's <calcPr fullCalcOnLoad="1"/>: its writer asks for a full recalculation on
 # opening, i.e. the stored formula results are not to be trusted (libraries that cannot
 # calculate write this, with placeholder results such as 0).
@@ -124,6 +134,8 @@ class PartScan:
     has_formulas: bool
     merged: tuple[str, ...]  # merged ranges as written, e.g. ("A1:B2",)
     asks_recalculation: bool = False
+    plain_cells: bool = True  # every cell tag is <c r="A1"..., column A-Z, row below 1,000,000
+    has_error_cells: bool = False  # some cell may be typed t="e" (a stored error value)
 
 
 @dataclass(frozen=True)
@@ -238,7 +250,8 @@ def scan_part(stream: IO[bytes], chunk_bytes: int = SCAN_CHUNK_BYTES) -> PartSca
     ASCII-compatible.  A tag cut by a chunk boundary is completed with the
     next chunk: the tail from the last ``<`` is carried over.
     """
-    has_formulas = asks_recalculation = False
+    has_formulas = asks_recalculation = has_error_cells = False
+    plain_cells = True
     merged: dict[str, None] = {}  # ordered set: a range seen twice across a boundary counts once
     carry = b""
     first = True
@@ -258,9 +271,15 @@ def scan_part(stream: IO[bytes], chunk_bytes: int = SCAN_CHUNK_BYTES) -> PartSca
             asks_recalculation = True
         if b"mergeCell" in buffer:
             merged.update(dict.fromkeys(m.decode("ascii", "replace") for m in _MERGE_TAG.findall(buffer)))
+        if not has_error_cells and (b'"e"' in buffer or b"'e'" in buffer) and _ERROR_TYPE.search(buffer):
+            has_error_cells = True
         last_tag = buffer.rfind(b"<", max(0, len(buffer) - MAX_TAG_BYTES))
+        # Tags before the last "<" are complete; the last one is seen whole with the next chunk.
+        complete = last_tag if last_tag >= 0 else len(buffer)
+        if plain_cells and (_UNPLAIN_CELL.search(buffer, 0, complete) or _PREFIXED_CELL.search(buffer)):
+            plain_cells = False
         carry = buffer[last_tag:] if last_tag >= 0 else buffer[-len(_DOCTYPE):]
-    return PartScan(has_formulas, tuple(merged), asks_recalculation)
+    return PartScan(has_formulas, tuple(merged), asks_recalculation, plain_cells, has_error_cells)
 
 
 def _check_encoding(start: bytes) -> None:

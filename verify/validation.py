@@ -50,10 +50,12 @@ from __future__ import annotations
 import datetime as dt
 import difflib
 import math
+import operator
 import re
 from dataclasses import dataclass
 from typing import Any, Callable
 
+import numpy as np
 import pandas as pd
 from openpyxl.utils import get_column_letter
 from openpyxl.utils.cell import range_boundaries
@@ -409,48 +411,147 @@ def _empty_frame(spec: SheetSpec) -> pd.DataFrame:
     return frame
 
 
-def _type_column(sheet: str, column: ColumnSpec, index: int, raw: RawSheet) -> tuple[list[Any], list[Finding]]:
-    """Typed values of one column, its cell findings, and one note per kind of tolerated spelling."""
-    letter = get_column_letter(index + 1)
-    convert = converter(column)
-    bounded = _is_bounded(column)
-    numeric = column.kind in ("number", "integer")
-    choice = column.kind == "enum"
-    values: list[Any] = []
+def _type_column(sheet: str, column: ColumnSpec, index: int, raw: RawSheet, cells: list[Any]
+                 ) -> tuple[Any, list[Finding]]:
+    """Typed values of one column, its cell findings, and one note per kind of tolerated spelling.
+
+    A vectorised pass types the plain cells (numbers in number columns, text
+    in text and choice columns, dates in date columns) and marks the rest;
+    only those, and blanks of required columns, take the cell-by-cell path,
+    in row order, so every finding is the one that path gives.
+    """
+    values, plain = _QUICK[column.kind](column, cells)
     findings: list[Finding] = []
+    if plain is True:
+        return values, findings
     as_text: list[int] = []  # rows of numbers stored as text
     recased: list[tuple[int, str, str]] = []  # (row, raw, value) of choices read despite their case
-    for number, cells in raw.rows:
-        value = cells[index] if index < len(cells) else None
-        if value is None or (isinstance(value, str) and not value.strip()):
-            values.append(None)
-            if column.required and (number, index) not in raw.formula_blanks:
-                findings.append(_missing(column, cell_ref(sheet, letter, number)))
-            continue
-        typed = convert(value)
-        if typed is INVALID:
-            code, message = type_message(column, value)
-            findings.append(Finding("error", code, cell_ref(sheet, letter, number), message))
-            values.append(None)
-            continue
-        if bounded:
-            problem = range_problem(column, typed)
-            if problem:
-                findings.append(Finding("error", "out_of_range", cell_ref(sheet, letter, number), problem))
-                values.append(None)
-                continue
-        if isinstance(value, str):
-            if numeric:
-                as_text.append(number)
-            elif choice and value.strip() != typed:
-                recased.append((number, value, typed))
-        values.append(typed)
-    if as_text:
-        findings.append(_text_number_note(column, cell_ref(sheet, letter, as_text[0]), len(as_text)))
-    if recased:
-        row, first_raw, first_value = recased[0]
-        findings.append(_choice_note(column, cell_ref(sheet, letter, row), first_raw, first_value, len(recased)))
+    # A blank optional cell is simply no value; every other cell not typed above is looked at.
+    pending = [i for i, ok in enumerate(plain) if not ok and (column.required or cells[i] is not None)]
+    if pending:
+        letter = get_column_letter(index + 1)
+        convert = converter(column)
+        for i in pending:
+            number = raw.rows[i][0]
+            typed, finding = _type_cell(column, convert, cells[i], (number, index) in raw.formula_blanks,
+                                        lambda: cell_ref(sheet, letter, number))
+            values[i] = typed
+            if finding is not None:
+                findings.append(finding)
+            elif isinstance(cells[i], str) and typed is not None:
+                if column.kind in ("number", "integer"):
+                    as_text.append(number)
+                elif column.kind == "enum" and cells[i].strip() != typed:
+                    recased.append((number, cells[i], typed))
+        if as_text:
+            findings.append(_text_number_note(column, cell_ref(sheet, letter, as_text[0]), len(as_text)))
+        if recased:
+            row, first_raw, first_value = recased[0]
+            findings.append(_choice_note(column, cell_ref(sheet, letter, row), first_raw, first_value,
+                                         len(recased)))
     return values, findings
+
+
+def _type_cell(column: ColumnSpec, convert: Callable[[Any], Any], value: Any, formula_blank: bool,
+               where: Callable[[], str]) -> tuple[Any, Finding | None]:
+    """Typed value of one cell of a table and its finding, if any (blank or refused gives None)."""
+    if value is None or (isinstance(value, str) and not value.strip()):
+        if column.required and not formula_blank:
+            return None, _missing(column, where())
+        return None, None
+    typed = convert(value)
+    if typed is INVALID:
+        code, message = type_message(column, value)
+        return None, Finding("error", code, where(), message)
+    if _is_bounded(column):
+        problem = range_problem(column, typed)
+        if problem:
+            return None, Finding("error", "out_of_range", where(), problem)
+    return typed, None
+
+
+def _quick_numbers(column: ColumnSpec, cells: list[Any]) -> tuple[Any, Any]:
+    """Float values and a mask of the cells typed here (True: all of them): finite numbers within
+    the column's bounds."""
+    try:
+        if set(map(type, cells)) <= {float, int}:  # bool is a type of its own here, so it is not taken
+            numbers, plain = np.array(cells, dtype=float), np.ones(len(cells), bool)
+        else:
+            plain = np.fromiter((type(v) is float or type(v) is int for v in cells), bool, len(cells))
+            numbers = np.array([v if ok else math.nan for v, ok in zip(cells, plain)], dtype=float)
+    except OverflowError:  # an int too large for a float: leave the column to the cell-by-cell path
+        return [None] * len(cells), np.zeros(len(cells), bool)
+    with np.errstate(invalid="ignore"):
+        plain &= np.isfinite(numbers)
+        if column.minimum is not None:
+            plain &= numbers >= column.minimum
+        if column.exclusive_minimum is not None:
+            plain &= numbers > column.exclusive_minimum
+        if column.maximum is not None:
+            plain &= numbers <= column.maximum
+        if column.exclusive_maximum is not None:
+            plain &= numbers < column.exclusive_maximum
+        if column.kind == "integer":
+            plain &= (numbers == np.floor(numbers)) & (np.abs(numbers) <= _LARGEST_EXACT_INTEGER)
+    numbers[~plain] = math.nan
+    values = _IntegerValues(numbers) if column.kind == "integer" else numbers
+    return values, True if plain.all() else plain
+
+
+class _IntegerValues:
+    """Whole numbers held as floats (NaN for none) until the column is built; ``values[i] = x`` sets one."""
+
+    def __init__(self, numbers: Any) -> None:
+        self.numbers = numbers
+
+    def __setitem__(self, i: int, value: int | None) -> None:
+        self.numbers[i] = math.nan if value is None else value
+
+    def series(self) -> pd.Series:
+        return pd.Series(pd.array(self.numbers, dtype="Int64"))
+
+
+def _trimmed(cells: list[Any]) -> tuple[list[Any], bool]:
+    """Each text cell trimmed (others None), and whether every cell was text."""
+    try:
+        return list(map(str.strip, cells)), True  # one C-level pass when the column is all text
+    except TypeError:  # a blank, a number, a date...
+        return [v.strip() if type(v) is str else None for v in cells], False
+
+
+def _quick_texts(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
+    """Trimmed text of the cells that hold non-blank text within the length limit, and a mask of
+    those cells (True: all of them)."""
+    texts, all_text = _trimmed(cells)
+    limit = column.max_length
+    if all_text:
+        distinct = set(texts)
+        if "" not in distinct and distinct.isdisjoint(ERROR_VALUES) and (
+                limit is None or max(map(len, distinct), default=0) <= limit):
+            return texts, True
+    return texts, [bool(t) and t not in ERROR_VALUES and (limit is None or len(t) <= limit) for t in texts]
+
+
+def _quick_choices(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
+    """Text of the cells that hold exactly an allowed value (once trimmed), and a mask of those
+    cells (True: all of them)."""
+    allowed = frozenset(column.enum)
+    texts, all_text = _trimmed(cells)
+    if all_text and set(texts) <= allowed:
+        return texts, True
+    return texts, [t in allowed for t in texts]
+
+
+def _quick_dates(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
+    """Dates of the cells that hold a date or a date-time; the rest are marked."""
+    values = [v.date() if type(v) is dt.datetime else v if type(v) is dt.date else None for v in cells]
+    return values, [v is not None for v in values]
+
+
+_QUICK: dict[str, Callable[[ColumnSpec, list[Any]], tuple[Any, Any]]] = {
+    "number": _quick_numbers, "integer": _quick_numbers, "string": _quick_texts,
+    "enum": _quick_choices, "date": _quick_dates,
+}
 
 
 def type_table(spec: SheetSpec, raw: RawSheet) -> tuple[TypedSheet, list[Finding]]:
@@ -459,20 +560,29 @@ def type_table(spec: SheetSpec, raw: RawSheet) -> tuple[TypedSheet, list[Finding
     findings.extend(sheet_read_findings(spec.name, raw, {index: name for name, index in positions.items()}))
     letters = {name: get_column_letter(index + 1) for name, index in positions.items()}
     data: dict[str, list[Any]] = {}
+    rows = list(map(operator.itemgetter(1), raw.rows))
+    shortest = min(map(len, rows), default=0)
     for column in spec.columns:
         index = positions.get(column.name)
         if index is None:
             data[column.name] = [None] * len(raw.rows)
             continue
-        data[column.name], problems = _type_column(spec.name, column, index, raw)
+        # A C-level pass per column; a row shorter than the column reads as blank there.
+        cells = (list(map(operator.itemgetter(index), rows)) if index < shortest
+                 else [row[index] if index < len(row) else None for row in rows])
+        data[column.name], problems = _type_column(spec.name, column, index, raw, cells)
         findings.extend(problems)
     if not raw.rows:
         return TypedSheet(spec, _empty_frame(spec), letters), findings
-    frame = pd.DataFrame({
-        c.name: pd.Series(data[c.name], dtype=_DTYPES.get(c.kind, "object")) for c in spec.columns
-    })
+    frame = pd.DataFrame({c.name: _series(c, data[c.name]) for c in spec.columns})
     frame[ROW] = [number for number, _ in raw.rows]
     return TypedSheet(spec, frame, letters), findings
+
+
+def _series(column: ColumnSpec, values: Any) -> pd.Series:
+    if isinstance(values, _IntegerValues):
+        return values.series()
+    return pd.Series(values, dtype=_DTYPES.get(column.kind, "object"))
 
 
 def unique_key_findings(sheet: TypedSheet) -> list[Finding]:
@@ -497,21 +607,28 @@ def unique_key_findings(sheet: TypedSheet) -> list[Finding]:
 
 
 def reference_findings(sheet: TypedSheet, sheets: dict[str, TypedSheet]) -> list[Finding]:
-    """Each reference to another sheet must name an existing record there."""
+    """Each reference to another sheet must name an existing record there (a blank reference is
+    left to the required-value check)."""
     findings = []
     for ref in sheet.spec.references:
         target = sheets.get(ref.sheet)
         if target is None:
             continue
         known = set(target.frame[list(ref.target)].dropna().itertuples(index=False, name=None))
-        frame = sheet.frame.dropna(subset=list(ref.columns))
-        values = frame[list(ref.columns)].itertuples(index=False, name=None)
-        for row, value in zip(frame[ROW], values):
-            if value in known:
+        columns = [sheet.frame[c] for c in ref.columns]
+        values = list(zip(*(c.tolist() for c in columns)))  # the tuples itertuples gives
+        if len(columns) == 1:  # one hash-table pass in pandas
+            rejected = np.flatnonzero(~columns[0].isin([k[0] for k in known]).to_numpy())
+        else:
+            rejected = [i for i, value in enumerate(values) if value not in known]
+        rows = sheet.frame[ROW].tolist()
+        for i in rejected:
+            value = values[i]
+            if value in known or any(pd.isna(v) for v in value):
                 continue
             label = ", ".join(f"{c}={v}" for c, v in zip(ref.columns, value))
             findings.append(Finding(
-                "error", "unknown_reference", sheet.cell(ref.columns[-1], row),
+                "error", "unknown_reference", sheet.cell(ref.columns[-1], rows[i]),
                 f"{label} is not on the {ref.sheet} sheet",
             ))
     return findings

@@ -15,7 +15,7 @@ import pandas as pd
 
 from . import consistency
 from .findings import Finding, cell_ref, has_errors
-from .reader import RawSheet, UnreadableWorkbook, read_sheets, sha256_of
+from .reader import RawSheet, UnreadableWorkbook, cyclic_gc_paused, read_sheets, sha256_of
 from .schema import PATHWAYS, SheetSpec, all_sheets, sheets_for
 from .validation import TypedSheet, read_key_values, reference_findings, type_table, unique_key_findings
 
@@ -104,7 +104,12 @@ def load_workbook(path: str | Path) -> LoadedWorkbook:
     if not path.is_file():
         return LoadedWorkbook(path, "", findings=[Finding("error", "not_a_workbook", path.name,
                                                           f"no file at {path}")])
-    loaded = LoadedWorkbook(path, sha256_of(path))
+    with cyclic_gc_paused():  # see there: millions of short-lived containers, no cycles
+        return _load(LoadedWorkbook(path, sha256_of(path)))
+
+
+def _load(loaded: LoadedWorkbook) -> LoadedWorkbook:
+    path = loaded.path
     try:
         raw = read_sheets(path)
     except UnreadableWorkbook as exc:
