@@ -133,7 +133,7 @@ def main() -> None:
     folder = args.keep or Path(tempfile.mkdtemp(prefix="verify-bench-"))
     folder.mkdir(parents=True, exist_ok=True)
     try:
-        print(f"| rows | step | seconds | peak MiB | x bare read |\n|---:|---|---:|---:|---:|")
+        print("| rows | step | seconds | peak MiB | x bare read |\n|---:|---|---:|---:|---:|")
         for n_trees in args.sizes:
             results = bench_size(n_trees, folder)
             floor = results["bare read (calamine)"][0]
