@@ -32,15 +32,11 @@ from typing import Any
 import numpy as np
 from openpyxl import Workbook
 
-from verify.atomic import atomic_path
 from verify.demo_projects.make_forest_demo import (
-    FIXED_TIMESTAMP,
-    fill_project,
-    fill_table,
-    reproducible_xlsx_bytes,
+    filled_workbook,
+    save_demo,
 )
 from verify.factors import DIESEL_CO2_EF, DIESEL_DENSITY, DIESEL_NCV, fuel_co2_kg_per_litre
-from verify.template import build_template
 
 Record = dict[str, Any]
 
@@ -193,24 +189,14 @@ SHEET_RECORDS: dict[str, Callable[[list[Record]], list[Record]]] = {
 def build_demo_workbook(seed: int = SEED) -> Workbook:
     """The filled demo workbook, built on the biochar template."""
     batches = simulate_batches(np.random.default_rng(seed))
-    book = build_template("biochar")
-    fill_project(book["Project"], project_values(batches))
-    for sheet, records in SHEET_RECORDS.items():
-        fill_table(book[sheet], records(batches))
-    book.properties.creator = COMPANY
-    book.properties.lastModifiedBy = COMPANY
-    book.properties.title = "Emberly Ridge Biochar - fictional demo input workbook"
-    book.properties.created = FIXED_TIMESTAMP
-    book.properties.modified = FIXED_TIMESTAMP
-    return book
+    return filled_workbook("biochar", project_values(batches),
+                           {sheet: records(batches) for sheet, records in SHEET_RECORDS.items()},
+                           COMPANY, "Emberly Ridge Biochar - fictional demo input workbook")
 
 
 def write_demo(target: Path = OUTPUT_PATH, seed: int = SEED) -> Path:
     """Build the demo workbook and write it to ``target`` atomically."""
-    data = reproducible_xlsx_bytes(build_demo_workbook(seed))
-    with atomic_path(Path(target)) as temporary:
-        temporary.write_bytes(data)
-    return Path(target)
+    return save_demo(build_demo_workbook(seed), target)
 
 
 if __name__ == "__main__":

@@ -31,7 +31,7 @@ import numpy as np
 from openpyxl import Workbook
 from openpyxl.worksheet.worksheet import Worksheet
 
-from verify.atomic import atomic_path
+from verify.atomic import write_bytes_atomic
 from verify.factors import (
     DIESEL_CO2_EF,
     DIESEL_DENSITY,
@@ -656,16 +656,16 @@ def fill_table(ws: Worksheet, records: list[Record]) -> None:
                 cell.number_format = "yyyy-mm-dd"
 
 
-def build_demo_workbook(seed: int = SEED) -> Workbook:
-    """The filled demo workbook, built on the forest template."""
-    inventory = simulate_inventory(np.random.default_rng(seed))
-    book = build_template("forest")
-    fill_project(book["Project"], project_values(inventory))
-    for sheet, records in SHEET_RECORDS.items():
-        fill_table(book[sheet], records(inventory))
-    book.properties.creator = COMPANY
-    book.properties.lastModifiedBy = COMPANY
-    book.properties.title = "Saranja Valley Reforestation - fictional demo input workbook"
+def filled_workbook(pathway: str, project: Record, tables: dict[str, list[Record]],
+                    company: str, title: str) -> Workbook:
+    """The ``pathway`` template with ``project`` fields and ``tables`` records filled in."""
+    book = build_template(pathway)
+    fill_project(book["Project"], project)
+    for sheet, records in tables.items():
+        fill_table(book[sheet], records)
+    book.properties.creator = company
+    book.properties.lastModifiedBy = company
+    book.properties.title = title
     book.properties.created = FIXED_TIMESTAMP
     book.properties.modified = FIXED_TIMESTAMP
     return book
@@ -676,12 +676,23 @@ def reproducible_xlsx_bytes(book: Workbook) -> bytes:
     return xlsx_bytes_with_fixed_dates(book, FIXED_TIMESTAMP)
 
 
+def save_demo(book: Workbook, target: Path) -> Path:
+    """Write ``book`` to ``target`` atomically, with reproducible bytes."""
+    write_bytes_atomic(Path(target), reproducible_xlsx_bytes(book))
+    return Path(target)
+
+
+def build_demo_workbook(seed: int = SEED) -> Workbook:
+    """The filled demo workbook, built on the forest template."""
+    inventory = simulate_inventory(np.random.default_rng(seed))
+    return filled_workbook("forest", project_values(inventory),
+                           {sheet: records(inventory) for sheet, records in SHEET_RECORDS.items()},
+                           COMPANY, "Saranja Valley Reforestation - fictional demo input workbook")
+
+
 def write_demo(target: Path = OUTPUT_PATH, seed: int = SEED) -> Path:
     """Build the demo workbook and write it to ``target`` atomically."""
-    data = reproducible_xlsx_bytes(build_demo_workbook(seed))
-    with atomic_path(Path(target)) as temporary:
-        temporary.write_bytes(data)
-    return Path(target)
+    return save_demo(build_demo_workbook(seed), target)
 
 
 if __name__ == "__main__":

@@ -30,15 +30,11 @@ from typing import Any
 import numpy as np
 from openpyxl import Workbook
 
-from verify.atomic import atomic_path
 from verify.demo_projects.make_forest_demo import (
-    FIXED_TIMESTAMP,
-    fill_project,
-    fill_table,
-    reproducible_xlsx_bytes,
+    filled_workbook,
+    save_demo,
 )
 from verify.factors import DIESEL_CO2_EF, DIESEL_DENSITY, DIESEL_NCV, fuel_co2_kg_per_litre
-from verify.template import build_template
 
 Record = dict[str, Any]
 
@@ -259,24 +255,14 @@ SHEET_RECORDS: dict[str, Callable[[list[Core]], list[Record]]] = {
 def build_demo_workbook(seed: int = SEED) -> Workbook:
     """The filled demo workbook, built on the soil template."""
     cores = simulate_cores(np.random.default_rng(seed))
-    book = build_template("soil")
-    fill_project(book["Project"], project_values(cores))
-    for sheet, records in SHEET_RECORDS.items():
-        fill_table(book[sheet], records(cores))
-    book.properties.creator = COMPANY
-    book.properties.lastModifiedBy = COMPANY
-    book.properties.title = "Cuchilla Verdosa Grazing Soil Carbon - fictional demo input workbook"
-    book.properties.created = FIXED_TIMESTAMP
-    book.properties.modified = FIXED_TIMESTAMP
-    return book
+    return filled_workbook("soil", project_values(cores),
+                           {sheet: records(cores) for sheet, records in SHEET_RECORDS.items()},
+                           COMPANY, "Cuchilla Verdosa Grazing Soil Carbon - fictional demo input workbook")
 
 
 def write_demo(target: Path = OUTPUT_PATH, seed: int = SEED) -> Path:
     """Build the demo workbook and write it to ``target`` atomically."""
-    data = reproducible_xlsx_bytes(build_demo_workbook(seed))
-    with atomic_path(Path(target)) as temporary:
-        temporary.write_bytes(data)
-    return Path(target)
+    return save_demo(build_demo_workbook(seed), target)
 
 
 if __name__ == "__main__":
