@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import pytest
 from openpyxl import Workbook
@@ -24,14 +24,19 @@ def minimal_tree_tco2e(dbh_cm: float, height_m: float = 15.0) -> float:
     return chave_2014_eq4_kg(0.6, dbh_cm, height_m) * (1 + 0.24) * 0.47 * 44 / 12 / 1000
 
 
-def write_workbook(path: Path, sheets: Sheets) -> Path:
-    """Write ``sheets`` (name -> rows, header first) as plain sheets, no template features."""
+def write_workbook(path: Path, sheets: Sheets, edit: Callable[[Workbook], None] | None = None) -> Path:
+    """Write ``sheets`` (name -> rows, header first) as plain sheets, no template features.
+
+    ``edit`` may change the book before it is saved (merges, hidden sheets...).
+    """
     book = Workbook()
     book.remove(book.active)
     for name, rows in sheets.items():
         ws = book.create_sheet(name)
         for row in rows:
             ws.append(row)
+    if edit:
+        edit(book)
     book.save(path)
     return path
 

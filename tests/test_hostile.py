@@ -22,7 +22,6 @@ from typing import Callable
 
 import openpyxl
 import pytest
-from openpyxl import Workbook
 
 from conftest import Sheets, minimal_forest, project_rows, write_workbook
 from verify import reader, safety
@@ -36,18 +35,6 @@ MAIN_NS = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"  # ECMA-37
 
 # ---------------------------------------------------------------- helpers
 
-def build(path: Path, sheets: Sheets, edit: Callable[[Workbook], None] | None = None) -> Path:
-    """Like conftest.write_workbook, with a hook to add what plain rows cannot (merges, hidden sheets)."""
-    book = Workbook()
-    book.remove(book.active)
-    for name, rows in sheets.items():
-        ws = book.create_sheet(name)
-        for row in rows:
-            ws.append(row)
-    if edit:
-        edit(book)
-    book.save(path)
-    return path
 
 
 def sheet_part(sheets: Sheets, title: str) -> str:
@@ -429,7 +416,7 @@ def test_formula_byte_scan_hands_odd_shapes_to_the_parser(edit, tmp_path):
 # ---------------------------------------------------------------- how the sheet is laid out
 
 def test_merged_cells_in_a_contract_column_are_an_error_at_the_top_left(tmp_path):
-    path = build(tmp_path / "w.xlsx", minimal_forest(), lambda book: book["Trees"].merge_cells("E2:F3"))
+    path = write_workbook(tmp_path / "w.xlsx", minimal_forest(), lambda book: book["Trees"].merge_cells("E2:F3"))
     findings = load_workbook(path).findings
     merged = [f for f in findings if f.code == "merged_cells"]
     assert [(f.severity, f.location) for f in merged] == [("error", "Trees!E2")]
@@ -443,7 +430,7 @@ def test_merged_cells_outside_contract_columns_are_left_alone(tmp_path):
         notes = book.create_sheet("Notes")
         notes["A1"] = "=SUM(B1:B3)"
         notes.merge_cells("A1:C1")
-    book = load_workbook(build(tmp_path / "w.xlsx", minimal_forest(), edit))
+    book = load_workbook(write_workbook(tmp_path / "w.xlsx", minimal_forest(), edit))
     assert book.ok
     assert not {f.code for f in book.findings} & {"merged_cells", "formula_without_value"}
 
@@ -451,7 +438,7 @@ def test_merged_cells_outside_contract_columns_are_left_alone(tmp_path):
 def test_hidden_contract_sheet_is_read_with_a_note(tmp_path):
     def edit(book):
         book["Species"].sheet_state = "hidden"
-    book = load_workbook(build(tmp_path / "w.xlsx", minimal_forest(), edit))
+    book = load_workbook(write_workbook(tmp_path / "w.xlsx", minimal_forest(), edit))
     assert book.ok
     assert [(f.severity, f.location) for f in book.findings if f.code == "hidden_sheet"] == [("note", "Species")]
     assert book.table("Species")["species"].tolist() == ["Alpha"]
@@ -620,7 +607,7 @@ def test_every_hostile_cell_is_reported_in_one_pass(tmp_path):
     def edit(book):
         book["Species"].sheet_state = "hidden"
         book["Strata"].merge_cells("A2:B2")
-    found = codes_at(load_workbook(build(tmp_path / "w.xlsx", sheets, edit)).findings)
+    found = codes_at(load_workbook(write_workbook(tmp_path / "w.xlsx", sheets, edit)).findings)
     assert {("decimal_comma", "Trees!E2"), ("formula_without_value", "Trees!E3"),
             ("error_value", "Trees!G4"), ("wrong_type", "Plots!D2"),
             ("hidden_sheet", "Species"), ("merged_cells", "Strata!A2")} <= found

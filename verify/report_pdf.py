@@ -455,13 +455,10 @@ def _charts(results: Mapping[str, Any]) -> dict[str, str]:
     return svgs
 
 
-def _render(results: Mapping[str, Any], root: Path) -> tuple[str, dict[str, tuple[bytes, str]]]:
-    """The HTML document and the data: URLs it embeds (url -> (body, MIME type))."""
+def template_environment(root: Path) -> Any:
+    """Jinja2 over ``root``: autoescaped (workbook text is never markup), strict about undefined names."""
     import jinja2
 
-    svgs = _charts(results)
-    chart_urls = {name: svg_data_url(svg) for name, svg in svgs.items()}
-    embedded = {chart_urls[name]: (svg.encode("utf-8"), "image/svg+xml") for name, svg in svgs.items()}
     environment = jinja2.Environment(
         loader=jinja2.FileSystemLoader(root),
         autoescape=True,
@@ -470,7 +467,15 @@ def _render(results: Mapping[str, Any], root: Path) -> tuple[str, dict[str, tupl
         lstrip_blocks=True,
     )
     environment.filters.update(FORMATTERS)
-    html = environment.get_template(TEMPLATE_NAME).render(**report_context(results), charts=chart_urls)
+    return environment
+
+
+def _render(results: Mapping[str, Any], root: Path) -> tuple[str, dict[str, tuple[bytes, str]]]:
+    """The HTML document and the data: URLs it embeds (url -> (body, MIME type))."""
+    svgs = _charts(results)
+    chart_urls = {name: svg_data_url(svg) for name, svg in svgs.items()}
+    embedded = {chart_urls[name]: (svg.encode("utf-8"), "image/svg+xml") for name, svg in svgs.items()}
+    html = template_environment(root).get_template(TEMPLATE_NAME).render(**report_context(results), charts=chart_urls)
     return html, embedded
 
 

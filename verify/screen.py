@@ -26,20 +26,19 @@ Design decisions
 from __future__ import annotations
 
 import datetime as dt
-import json
 import math
 import os
 import sys
 from concurrent.futures import Future, ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
-from functools import lru_cache
 from pathlib import Path
 from typing import Any, Callable, Iterable, Mapping, TextIO
 
 from . import TOOL_NAME, __version__
 from .atomic import atomic_path, guard_not_input, write_text_atomic
 from .engine import CAUTIONS, run, today
+from .results_json import document_validator, json_document_text
 from .results_xlsx import reproducible_xlsx_bytes
 
 PORTFOLIO_XLSX, PORTFOLIO_JSON, PORTFOLIO_PDF = "portfolio.xlsx", "portfolio.json", "portfolio.pdf"
@@ -435,18 +434,8 @@ class StderrProgress:
 # The three views.
 
 
-@lru_cache(maxsize=1)
 def portfolio_validator() -> Any:
-    from jsonschema import Draft202012Validator
-
-    from .schema import read_schema_text
-
-    schema = json.loads(read_schema_text("portfolio"))
-    return Draft202012Validator(schema, format_checker=Draft202012Validator.FORMAT_CHECKER)
-
-
-def portfolio_json_text(document: Mapping[str, Any]) -> str:
-    return json.dumps(document, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    return document_validator("portfolio")
 
 
 NUMBER_FORMATS = {"tonnes": "#,##0.0", "credits": "#,##0", "pct": "0.0", "count": "0"}
@@ -524,6 +513,6 @@ def write_portfolio(portfolio: Portfolio, out_dir: Path) -> PortfolioFiles:
         guard_not_input(target, protected)
     with atomic_path(files.xlsx, protected) as temporary:
         temporary.write_bytes(reproducible_xlsx_bytes(build_portfolio_workbook(document)))
-    write_text_atomic(files.json, portfolio_json_text(document), protected)
+    write_text_atomic(files.json, json_document_text(document), protected)
     write_portfolio_pdf(document, files.pdf, protected)
     return files

@@ -21,12 +21,12 @@ from typing import Any
 
 from .charts import GRID, INK, MUTED, chart_style
 from .report_pdf import (
-    FORMATTERS,
     fixed_source_date_epoch,
     ResourcePolicy,
     finite_number,
     make_url_fetcher,
     svg_data_url,
+    template_environment,
     templates_dir,
 )
 
@@ -220,18 +220,8 @@ def _is_iso_date(text: str) -> bool:
 
 
 def _render(document: Mapping[str, Any], root: Path) -> tuple[str, dict[str, tuple[bytes, str]]]:
-    import jinja2
-
     context, svgs = portfolio_context(document)
-    environment = jinja2.Environment(
-        loader=jinja2.FileSystemLoader(root),
-        autoescape=True,
-        undefined=jinja2.StrictUndefined,
-        trim_blocks=True,
-        lstrip_blocks=True,
-    )
-    environment.filters.update(FORMATTERS)
-    html = environment.get_template(TEMPLATE_NAME).render(**context)
+    html = template_environment(root).get_template(TEMPLATE_NAME).render(**context)
     embedded = {url: (svg.encode("utf-8"), "image/svg+xml") for url, svg in svgs.items()}
     return html, embedded
 
