@@ -170,3 +170,78 @@ def test_stored_error_type_is_seen_by_the_scan():
     scan = scan_part(io.BytesIO(sheet_xml('<row r="1"><c r="A1" t="e"><v>#N/A</v></c></row>')))
     assert scan.has_error_cells is True
     assert scan_part(io.BytesIO(sheet_xml(PLAIN))).has_error_cells is False
+
+
+def test_rows_of_blanks_and_spaces_are_dropped_by_both_readers(tmp_path):
+    # A row whose every cell is empty or only spaces is no record; a row with one value is kept.
+    # Reference: the openpyxl read-only reader, which decides row by row.
+    book = Workbook()
+    ws = book.active
+    for row in (["id", "amount", "note"], ["  ", None, "\t"], ["x", 1, None], [None, " ", None],
+                [None, None, "kept"]):
+        ws.append(row)
+    book.save(tmp_path / "w.xlsx")
+    raw = read_sheets(tmp_path / "w.xlsx")[ws.title]
+    expected = [(3, ("x", 1, None)), (5, (None, None, "kept"))]
+    assert raw.rows == expected
+    assert raw.numbers == (3, 5) and raw.columns[2] == (None, "kept")
+    reference = openpyxl.load_workbook(tmp_path / "w.xlsx", read_only=True, data_only=True)
+    try:
+        header, numbers, columns = reader._openpyxl_values(reference[ws.title])
+    finally:
+        reference.close()
+    assert (header, list(zip(numbers, zip(*columns)))) == (raw.header, expected)
+
+
+def test_background_read_gives_what_read_sheets_gives(tmp_path):
+    import hashlib
+
+    path = mixed_workbook(tmp_path / "mixed.xlsx")
+    read = reader.BackgroundRead(path)
+    raw = read.result()
+    assert read.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()  # reference: hashlib on the bytes
+    direct = read_sheets(path)
+    assert list(raw) == list(direct) == ["Data", "Empty"]
+    assert all(raw[name] == direct[name] for name in raw)
+
+
+def test_background_read_hands_the_refusal_to_the_caller(tmp_path):
+    path = tmp_path / "notes.xlsx"
+    path.write_text("id,amount\nA,1\n")
+    read = reader.BackgroundRead(path)
+    with pytest.raises(reader.UnreadableWorkbook, match="text file"):
+        read.result()
+    assert len(read.sha256) == 64
+    findings = load_workbook(path).findings
+    assert [f.code for f in findings] == ["not_a_workbook"]
+
+
+def test_collector_pauses_overlapping_across_threads_restore_it_once():
+    # A read on a worker thread and the caller's own pause overlap; the collector must stay off
+    # until the last one ends (else the caller's validation runs with it on), then be restored.
+    import gc
+    import threading
+
+    inside, release = threading.Event(), threading.Event()
+
+    def worker() -> None:
+        with reader.cyclic_gc_paused():
+            inside.set()
+            release.wait(10)
+
+    assert gc.isenabled()
+    thread = threading.Thread(target=worker)
+    thread.start()
+    inside.wait(10)
+    with reader.cyclic_gc_paused():
+        release.set()
+        thread.join()
+        assert not gc.isenabled()  # the worker's pause ended first
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        with reader.cyclic_gc_paused():
+            pass
+        assert not gc.isenabled()  # a collector the caller turned off stays off
+    finally:
+        gc.enable()

@@ -206,3 +206,36 @@ def test_input_file_is_not_modified(tmp_path):
     before = path.read_bytes(), path.stat().st_mtime_ns
     load_workbook(path)
     assert (path.read_bytes(), path.stat().st_mtime_ns) == before
+
+
+def test_reference_needs_the_pair_not_each_part(tmp_path):
+    # Plot P2 and event "end" each exist on Plots, but not together: the Trees rows naming
+    # (P2, end) point at no plot visit (the workbook contract: a reference names a whole key).
+    sheets = minimal_forest()
+    header, *rows = sheets["Plots"]
+    sheets["Plots"] = [header] + [r for r in rows if not (r[0] == "P2" and r[2] == "end")]
+    found = codes_at(findings_of(tmp_path, sheets))
+    assert {("unknown_reference", "Trees!B8"), ("unknown_reference", "Trees!B9")} <= found
+    assert not any(code == "unknown_reference" and cell != "Trees!B8" and cell != "Trees!B9"
+                   for code, cell in found)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_key_codes_match_python_tuple_equality(seed):
+    # Reference: Python's own equality of key tuples (1 == 1.0, "a" != "A"), compared pairwise.
+    import random
+
+    import pandas as pd
+
+    from verify.validation import key_codes
+
+    rng = random.Random(seed)
+    pool = ["a", "A", "b", 1, 1.0, 2.5, None]
+    left = pd.DataFrame({"x": [rng.choice(pool) for _ in range(40)], "y": [rng.choice(pool) for _ in range(40)]})
+    right = pd.DataFrame({"u": [rng.choice(pool) for _ in range(25)], "v": [rng.choice(pool) for _ in range(25)]})
+    codes = [c.tolist() for c in key_codes(left, right)]
+    keys = [list(left.itertuples(index=False, name=None)), list(right.itertuples(index=False, name=None))]
+    flat = [(k, c) for table_keys, table_codes in zip(keys, codes) for k, c in zip(table_keys, table_codes)]
+    for key_a, code_a in flat:
+        for key_b, code_b in flat:
+            assert (code_a == code_b) == (key_a == key_b), (key_a, key_b)

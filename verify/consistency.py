@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 from .findings import Finding
-from .validation import ROW
+from .validation import ROW, key_codes
 
 if TYPE_CHECKING:
     from .workbook import LoadedWorkbook
@@ -154,12 +154,15 @@ def _consecutive_measurements(book: LoadedWorkbook) -> pd.DataFrame:
     events = event_order(book.table("Plots"))
     rank = {event: index for index, event in enumerate(events)}
     visits = book.table("Plots")[["plot_id", "event", "measured_on"]].drop_duplicates(["plot_id", "event"])
-    trees = book.table("Trees").dropna(subset=["dbh_cm"])
+    visits["measured_on"] = pd.to_datetime(visits["measured_on"])  # once per visit, not per tree
+    trees = book.table("Trees")
+    # Only the columns the checks read are carried through the joins.
+    trees = trees.loc[trees["dbh_cm"].notna(), ["plot_id", "event", "tree_id", "dbh_cm", "status", ROW]]
     trees = trees.assign(rank=trees["event"].map(rank)).dropna(subset=["rank"])
     trees = trees.merge(visits, on=["plot_id", "event"], how="left")
-    trees["measured_on"] = pd.to_datetime(trees["measured_on"])
-    previous = trees.assign(rank=trees["rank"] + 1)
-    pairs = trees.merge(previous, on=["plot_id", "tree_id", "rank"], suffixes=("", "_before"))
+    trees["tree"], = key_codes(trees[["plot_id", "tree_id"]])  # an integer join key, text hashed once
+    previous = trees.drop(columns=["plot_id", "tree_id"]).assign(rank=trees["rank"] + 1)
+    pairs = trees.merge(previous, on=["tree", "rank"], suffixes=("", "_before"))
     pairs["years"] = (pairs["measured_on"] - pairs["measured_on_before"]).dt.days / 365.25
     return pairs
 

@@ -30,7 +30,7 @@ from .accounting import (
 from .consistency import event_order
 from .findings import Finding, has_errors
 from .pathway import PathwayEstimate
-from .reader import cyclic_gc_paused
+from .reader import BackgroundRead, cyclic_gc_paused
 from .reconciliation import reconcile
 from .workbook import LoadedWorkbook, load_workbook
 
@@ -227,7 +227,12 @@ def _tolerances(project: dict[str, Any]) -> checkplots.Tolerances:
     )
 
 
-def run(path: str | Path, run_date: dt.date | None = None) -> RunResult:
-    """Validate and compute the workbook at ``path``; never modifies it."""
+def run(path: str | Path, run_date: dt.date | None = None, read: BackgroundRead | None = None) -> RunResult:
+    """Validate and compute the workbook at ``path``; never modifies it.
+
+    ``read``: the same file already being read on a worker thread, started
+    before this module's imports so that they overlap the parse (the CLI does
+    this; see :class:`~verify.reader.BackgroundRead`).
+    """
     with cyclic_gc_paused():  # the tables built are large and hold no reference cycles
-        return compute(load_workbook(path), run_date)
+        return compute(load_workbook(path, read), run_date)

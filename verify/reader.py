@@ -37,18 +37,22 @@ from __future__ import annotations
 
 import gc
 import hashlib
+import importlib.util
+import itertools
+import operator
 import re
+import threading
 import warnings
 import zipfile
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any, Iterator
+from typing import IO, Any, Iterator, Sequence
 
 from .findings import Finding
 from .safety import FORMULA_TAG, ArchiveScan, PartScan, UnreadableWorkbook, inspect_archive
 
-__all__ = ["MAX_COLUMNS", "MAX_ROWS", "RawBook", "RawSheet", "UnreadableWorkbook", "cyclic_gc_paused",
+__all__ = ["MAX_COLUMNS", "MAX_ROWS", "BackgroundRead", "RawBook", "RawSheet", "UnreadableWorkbook", "cyclic_gc_paused",
            "parse_formula_cells", "read_sheets", "scan_formula_cells", "sha256_of"]
 
 # The largest sheet spreadsheet programs write has 1,048,576 rows (common
@@ -78,19 +82,34 @@ FormulaCells = tuple[frozenset[tuple[int, int]], dict[int, tuple[int, int]]]
 
 @dataclass(frozen=True)
 class RawSheet:
-    """A sheet's header row and its data rows, each row with its row number.
+    """A sheet's header row and its non-blank data rows, held column by column.
 
-    Column positions (``index``) are 0-based, as in ``header`` and each row.
+    ``columns[index]`` holds the cells under header position ``index``
+    (0-based, as in ``header``), one per data row; ``numbers`` holds each data
+    row's worksheet row number.  Every column is as long as ``numbers``, and
+    there are as many columns as the header is wide (at least
+    :data:`MIN_COLUMNS`).  Validation types one column at a time, so the
+    reader hands the cells over that way.
     """
 
     name: str
     header: tuple[Any, ...]
-    rows: list[tuple[int, tuple[Any, ...]]]
+    numbers: Sequence[int] = ()
+    columns: tuple[Sequence[Any], ...] = ()
     hidden: bool = False
     merged: tuple[str, ...] = ()  # merged ranges of more than one cell, e.g. "E5:E7"
     formula_blanks: frozenset[tuple[int, int]] = frozenset()  # (row, index) of formulas without a stored result
     formula_values: dict[int, tuple[int, int]] = field(default_factory=dict)  # index -> (first row, count) with one
     formula_results_stale: bool = False  # the workbook asks to be recalculated on opening
+
+    def column(self, index: int) -> Sequence[Any]:
+        """The cells under header position ``index`` (all None beyond the columns read)."""
+        return self.columns[index] if index < len(self.columns) else (None,) * len(self.numbers)
+
+    @property
+    def rows(self) -> list[tuple[int, tuple[Any, ...]]]:
+        """(row number, cells) of each data row."""
+        return list(zip(self.numbers, zip(*self.columns))) if self.columns else [(n, ()) for n in self.numbers]
 
 
 class RawBook(dict[str, RawSheet]):
@@ -119,10 +138,8 @@ def read_sheets(path: Path) -> RawBook:
     Raises :class:`UnreadableWorkbook` when the file cannot be read at all;
     everything else is left to validation.
     """
-    import openpyxl
-
     path = Path(path)
-    if not openpyxl.DEFUSEDXML:
+    if importlib.util.find_spec("defusedxml") is None:  # openpyxl parses through it when it is there
         raise UnreadableWorkbook("defusedxml is not installed, so untrusted XML cannot be parsed safely; "
                                  "install the package's dependencies")
     scan = inspect_archive(path)
@@ -138,20 +155,71 @@ def read_sheets(path: Path) -> RawBook:
     return RawBook(sheets, _macro_findings(path, scan))
 
 
+_gc_pauses = 0
+_gc_was_enabled = False
+_gc_lock = threading.Lock()
+
+
 @contextmanager
 def cyclic_gc_paused() -> Iterator[None]:
     """Pause the cyclic garbage collector (reference counting still frees memory).
 
     Reading and validating build millions of lists and tuples and no reference cycles; the
     collector would walk all of them again at every generation threshold (measured: it triples
-    the time of calamine's conversion to Python values on a 500,000-row sheet)."""
-    enabled = gc.isenabled()
-    gc.disable()
+    the time of calamine's conversion to Python values on a 500,000-row sheet).  Pauses nest and
+    may overlap across threads (a :class:`BackgroundRead` and the caller): the collector is
+    restored when the last one ends."""
+    global _gc_pauses, _gc_was_enabled
+    with _gc_lock:
+        if _gc_pauses == 0:
+            _gc_was_enabled = gc.isenabled()
+            gc.disable()
+        _gc_pauses += 1
     try:
         yield
     finally:
-        if enabled:
-            gc.enable()
+        with _gc_lock:
+            _gc_pauses -= 1
+            if _gc_pauses == 0 and _gc_was_enabled:
+                gc.enable()
+
+
+class BackgroundRead:
+    """A workbook hashed and read on a worker thread, started at once.
+
+    calamine parses a sheet without holding the interpreter lock, so a caller
+    that starts the read before importing the calculation libraries (pandas,
+    scipy, openpyxl: about a second) has them loaded by the time the
+    sheets are (see README, Performance).  :meth:`result` waits and returns
+    what :func:`read_sheets` would, or raises what it would, and sets :attr:`sha256`.
+    """
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        self.sha256 = ""  # of the file as read; set once result() returns or raises
+        self._outcome: RawBook | BaseException | None = None
+        # A daemon thread: a caller that stops early is not held until the parse ends.
+        self._thread = threading.Thread(target=self._work, name="verify-read", daemon=True)
+        self._thread.start()
+
+    def _work(self) -> None:
+        try:
+            with cyclic_gc_paused():
+                try:
+                    self.sha256 = sha256_of(self.path)
+                except OSError:
+                    pass  # read_sheets says why the file cannot be read
+                self._outcome = read_sheets(self.path)
+        except BaseException as exc:  # handed to the caller's thread by result()
+            self._outcome = exc
+
+    def result(self) -> RawBook:
+        """The sheets, as :func:`read_sheets` gives them; raises what it raised."""
+        self._thread.join()
+        if isinstance(self._outcome, BaseException):
+            raise self._outcome
+        assert self._outcome is not None
+        return self._outcome
 
 
 def _sheet_entries(path: Path) -> list[tuple[str, str, str]]:
@@ -179,13 +247,14 @@ def _read_all(path: Path, scan: ArchiveScan) -> dict[str, RawSheet]:
             part = scan.parts.get(part_name)
             if part is not None and part.plain_cells and not part.has_error_cells:
                 fast_book = fast_book or python_calamine.CalamineWorkbook.from_path(str(path))
-                header, rows = _calamine_values(fast_book.get_sheet_by_name(title).to_python(skip_empty_area=False))
+                header, numbers, columns = _calamine_values(
+                    fast_book.get_sheet_by_name(title).to_python(skip_empty_area=False))
             else:
                 if slow_book is None:
                     slow_book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
-                header, rows = _openpyxl_values(slow_book[title])
+                header, numbers, columns = _openpyxl_values(slow_book[title])
             blanks, values = _formula_cells(path, part_name) if part and part.has_formulas else (frozenset(), {})
-            sheets[title] = RawSheet(title, header, rows, hidden=state != "visible",
+            sheets[title] = RawSheet(title, header, numbers, columns, hidden=state != "visible",
                                      merged=_merged_ranges(part) if part else (), formula_blanks=blanks,
                                      formula_values=values, formula_results_stale=scan.formula_results_stale)
     finally:
@@ -215,41 +284,71 @@ def _macro_findings(path: Path, scan: ArchiveScan) -> list[Finding]:
                     "and only the stored cell values were read")]
 
 
-def _calamine_values(grid: list[list[Any]]) -> tuple[tuple[Any, ...], list[tuple[int, tuple[Any, ...]]]]:
-    """Header and non-blank rows of a calamine grid (list index + 1 is the row number, A1 first).
+def _calamine_values(grid: list[list[Any]]) -> tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]:
+    """Header, row numbers and columns of a calamine grid (list index + 1 is the row number, A1 first).
 
     calamine gives an empty cell as ""; it becomes None, as openpyxl reads it.
+    The grid is turned into columns by C-level passes (zip), not cell by cell.
     """
     header = _trim_header(tuple(None if v == "" else v for v in grid[0][:MAX_COLUMNS]) if grid else ())
     width = max(len(header), MIN_COLUMNS)
-    rows = []
-    for number, cells in enumerate(grid[1:MAX_ROWS], start=2):
-        values = cells[:width]
-        if "" in values:  # a C-level scan: full rows skip the per-cell pass
-            values = [None if v == "" else v for v in values]
-        if len(values) < width:
-            values += [None] * (width - len(values))
-        first = values[0]
-        if (first is None or (type(first) is str and not first.strip())) and all(_is_blank(v) for v in values):
-            continue
-        rows.append((number, tuple(values)))
-    return header, rows
+    body = grid[1:MAX_ROWS]
+    if len(set(map(len, body))) > 1:  # calamine's rows are all as wide; this keeps zip from cutting any
+        longest = max(map(len, body))
+        body = [cells + [""] * (longest - len(cells)) for cells in body]
+    columns = [_empty_as_none(column) for column in itertools.islice(zip(*body), width)]
+    columns += [(None,) * len(body)] * (width - len(columns))
+    return (header, *_without_blank_rows(tuple(range(2, len(body) + 2)), columns))
 
 
-def _openpyxl_values(ws: Any) -> tuple[tuple[Any, ...], list[tuple[int, tuple[Any, ...]]]]:
+def _empty_as_none(column: tuple[Any, ...]) -> tuple[Any, ...]:
+    return tuple(None if v == "" else v for v in column) if "" in column else column
+
+
+def _without_blank_rows(numbers: tuple[int, ...], columns: list[tuple[Any, ...]]
+                        ) -> tuple[tuple[int, ...], tuple[tuple[Any, ...], ...]]:
+    """Drop the rows whose every cell is blank (None or spaces)."""
+    blank: list[bool] | None = None
+    for column in columns:
+        flags = _blank_flags(column)
+        if flags is None:  # a column without blanks: no row is blank
+            return numbers, tuple(columns)
+        blank = flags if blank is None else list(map(operator.and_, blank, flags))
+    keep = [i for i, flag in enumerate(blank or ()) if not flag]
+    if len(keep) == len(numbers):
+        return numbers, tuple(columns)
+    return _take(numbers, keep), tuple(_take(column, keep) for column in columns)
+
+
+def _blank_flags(column: tuple[Any, ...]) -> list[bool] | None:
+    """Whether each cell is blank, or None when none is (one C-level set build decides that)."""
+    blank_texts = {v for v in set(column) if type(v) is str and not v.strip()}
+    if not blank_texts and None not in column:
+        return None
+    return [v is None or (type(v) is str and v in blank_texts) for v in column]
+
+
+def _take(values: tuple[Any, ...], keep: list[int]) -> tuple[Any, ...]:
+    return tuple(values[i] for i in keep)
+
+
+def _openpyxl_values(ws: Any) -> tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]:
     # Some writers store a wrong sheet dimension; without this, read-only mode
     # would silently stop at the declared last row.
     ws.reset_dimensions()
     header = _header(ws)
     width = max(len(header), MIN_COLUMNS)
-    rows = [
+    numbered = [
         (number, values)
         for number, values in enumerate(
             ws.iter_rows(min_row=2, max_row=MAX_ROWS, max_col=width, values_only=True), start=2)
         # count() first: an empty row is dropped without a Python call per cell
         if values.count(None) != width and not all(_is_blank(v) for v in values)
     ]
-    return header, rows
+    numbers = tuple(number for number, _ in numbered)
+    # read-only rows are as wide as max_col, padded with None
+    columns = tuple(zip(*(values for _, values in numbered))) or ((),) * width
+    return header, numbers, columns
 
 
 def _header(ws: Any) -> tuple[Any, ...]:

@@ -15,7 +15,7 @@ import pandas as pd
 
 from . import consistency
 from .findings import Finding, cell_ref, has_errors
-from .reader import RawSheet, UnreadableWorkbook, cyclic_gc_paused, read_sheets, sha256_of
+from .reader import BackgroundRead, RawBook, RawSheet, UnreadableWorkbook, cyclic_gc_paused
 from .schema import PATHWAYS, SheetSpec, all_sheets, sheets_for
 from .validation import TypedSheet, read_key_values, reference_findings, type_table, unique_key_findings
 
@@ -86,8 +86,8 @@ def _type_sheets(raw: dict[str, RawSheet], pathway: str) -> tuple[dict[str, Type
         sheet = _find_sheet(raw, spec.name)
         if sheet is None:
             findings.append(_missing_sheet(spec, pathway))
-            sheet = RawSheet(spec.name, spec.headers, [])
-        elif not sheet.rows and spec.is_required(pathway):
+            sheet = RawSheet(spec.name, spec.headers)
+        elif not sheet.numbers and spec.is_required(pathway):
             findings.append(Finding("error", "empty_sheet", spec.name,
                                     f"the {spec.name} sheet has no data rows"))
         typed[spec.name], problems = type_table(spec, sheet)
@@ -98,23 +98,27 @@ def _type_sheets(raw: dict[str, RawSheet], pathway: str) -> tuple[dict[str, Type
     return typed, findings
 
 
-def load_workbook(path: str | Path) -> LoadedWorkbook:
-    """Read and validate ``path``; the returned object lists every problem found."""
+def load_workbook(path: str | Path, read: BackgroundRead | None = None) -> LoadedWorkbook:
+    """Read and validate ``path``; the returned object lists every problem found.
+
+    ``read``, when given, is the same file already being read on a worker
+    thread (see :class:`~verify.reader.BackgroundRead`).
+    """
     path = Path(path)
     if not path.is_file():
         return LoadedWorkbook(path, "", findings=[Finding("error", "not_a_workbook", path.name,
                                                           f"no file at {path}")])
     with cyclic_gc_paused():  # see there: millions of short-lived containers, no cycles
-        return _load(LoadedWorkbook(path, sha256_of(path)))
+        read = read or BackgroundRead(path)
+        try:
+            raw = read.result()
+        except UnreadableWorkbook as exc:
+            return LoadedWorkbook(path, read.sha256, findings=[
+                Finding("error", "not_a_workbook", path.name, str(exc))])
+        return _validate(LoadedWorkbook(path, read.sha256), raw)
 
 
-def _load(loaded: LoadedWorkbook) -> LoadedWorkbook:
-    path = loaded.path
-    try:
-        raw = read_sheets(path)
-    except UnreadableWorkbook as exc:
-        loaded.findings.append(Finding("error", "not_a_workbook", path.name, str(exc)))
-        return loaded
+def _validate(loaded: LoadedWorkbook, raw: RawBook) -> LoadedWorkbook:
     loaded.findings.extend(raw.findings)
     loaded.project, _, findings = _read_project(raw)
     loaded.findings.extend(findings)
