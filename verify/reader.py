@@ -47,7 +47,7 @@ import zipfile
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any, Iterator, Sequence
+from typing import IO, Any, Callable, Iterator, Sequence, TypeVar
 
 from .findings import Finding
 from .safety import FORMULA_TAG, ArchiveScan, PartScan, UnreadableWorkbook, inspect_archive
@@ -138,21 +138,7 @@ def read_sheets(path: Path) -> RawBook:
     Raises :class:`UnreadableWorkbook` when the file cannot be read at all;
     everything else is left to validation.
     """
-    path = Path(path)
-    if importlib.util.find_spec("defusedxml") is None:  # openpyxl parses through it when it is there
-        raise UnreadableWorkbook("defusedxml is not installed, so untrusted XML cannot be parsed safely; "
-                                 "install the package's dependencies")
-    scan = inspect_archive(path)
-    # The readers' failures on malformed parts are open-ended (ParseError,
-    # KeyError, ValueError, TypeError, zlib.error, defusedxml's refusals,
-    # calamine's errors...); a stranger's file must give a finding, never a traceback.
-    try:
-        with warnings.catch_warnings(), cyclic_gc_paused():
-            warnings.simplefilter("ignore")
-            sheets = _read_all(path, scan)
-    except Exception as exc:
-        raise UnreadableWorkbook(_open_failure(path.name, exc)) from exc
-    return RawBook(sheets, _macro_findings(path, scan))
+    return BackgroundRead(path).result()
 
 
 _gc_pauses = 0
@@ -185,41 +171,126 @@ def cyclic_gc_paused() -> Iterator[None]:
 
 
 class BackgroundRead:
-    """A workbook hashed and read on a worker thread, started at once.
+    """A workbook read with its largest step, calamine's parse, on a worker thread.
 
-    calamine parses a sheet without holding the interpreter lock, so a caller
-    that starts the read before importing the calculation libraries (pandas,
-    scipy, openpyxl: about a second) has them loaded by the time the
-    sheets are (see README, Performance).  :meth:`result` waits and returns
-    what :func:`read_sheets` would, or raises what it would, and sets :attr:`sha256`.
+    The constructor does, in the caller's thread, what must come first and
+    holds the interpreter lock anyway: the hash, the safety scan of every
+    part and the sheet list.  It then starts the worker, which parses the
+    plain sheets with calamine; calamine does not hold the interpreter lock
+    while it parses, so a caller that goes on to import the calculation
+    libraries (pandas, scipy, openpyxl: about a second) has them loaded by
+    the time the sheets are (see README, Performance).  :meth:`result`
+    waits, reads any other sheet with openpyxl in the caller's thread, and
+    returns what :func:`read_sheets` returns, or raises what it raises.
+
+    Only the caller's thread touches the warnings filters (openpyxl's
+    warnings are silenced while it reads): they are process-wide.
     """
 
     def __init__(self, path: str | Path) -> None:
         self.path = Path(path)
-        self.sha256 = ""  # of the file as read; set once result() returns or raises
-        self._outcome: RawBook | BaseException | None = None
-        # A daemon thread: a caller that stops early is not held until the parse ends.
-        self._thread = threading.Thread(target=self._work, name="verify-read", daemon=True)
-        self._thread.start()
+        self.sha256 = ""  # of the file as read ("" when it cannot be read)
+        self._failure: UnreadableWorkbook | None = None
+        self._parsed: dict[str, tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]] = {}
+        self._worker_failure: Exception | None = None
+        self._worker: threading.Thread | None = None
+        try:
+            self.sha256 = sha256_of(self.path)
+        except OSError:
+            pass  # the scan says why the file cannot be read
+        try:
+            self._scan = _inspect(self.path)
+            self._entries = _guarded(self.path, _sheet_entries)
+        except UnreadableWorkbook as exc:
+            self._failure = exc
+            return
+        fast = [title for title, _, part in self._entries if _calamine_reads(self._scan.parts.get(part))]
+        if fast:
+            # A daemon thread: a caller that stops early is not held until the parse ends.
+            self._worker = threading.Thread(target=self._parse, args=(fast,), name="verify-read", daemon=True)
+            self._worker.start()
 
-    def _work(self) -> None:
+    def _parse(self, titles: list[str]) -> None:
+        import python_calamine
+
         try:
             with cyclic_gc_paused():
+                book = python_calamine.CalamineWorkbook.from_path(str(self.path))
                 try:
-                    self.sha256 = sha256_of(self.path)
-                except OSError:
-                    pass  # read_sheets says why the file cannot be read
-                self._outcome = read_sheets(self.path)
-        except BaseException as exc:  # handed to the caller's thread by result()
-            self._outcome = exc
+                    for title in titles:
+                        grid = book.get_sheet_by_name(title).to_python(skip_empty_area=False)
+                        self._parsed[title] = _calamine_values(grid)
+                        del grid  # the columns hold the values; the grid's lists can go now
+                finally:
+                    book.close()
+        except Exception as exc:  # handed to the caller's thread by result()
+            self._worker_failure = exc
 
     def result(self) -> RawBook:
-        """The sheets, as :func:`read_sheets` gives them; raises what it raised."""
-        self._thread.join()
-        if isinstance(self._outcome, BaseException):
-            raise self._outcome
-        assert self._outcome is not None
-        return self._outcome
+        """The sheets, as :func:`read_sheets` gives them; raises :class:`UnreadableWorkbook`."""
+        if self._failure is not None:
+            raise self._failure
+        if self._worker is not None:
+            self._worker.join()
+        if self._worker_failure is not None:
+            raise UnreadableWorkbook(_open_failure(self.path.name, self._worker_failure)) from self._worker_failure
+        with cyclic_gc_paused():
+            sheets = _guarded(self.path, self._sheets)
+        return RawBook(sheets, _macro_findings(self.path, self._scan))
+
+    def _sheets(self, path: Path) -> dict[str, RawSheet]:
+        import openpyxl
+
+        sheets: dict[str, RawSheet] = {}
+        slow_book = None
+        try:
+            for title, state, part_name in self._entries:
+                part = self._scan.parts.get(part_name)
+                if title in self._parsed:
+                    header, numbers, columns = self._parsed[title]
+                else:
+                    if slow_book is None:
+                        slow_book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
+                    header, numbers, columns = _openpyxl_values(slow_book[title])
+                blanks, values = _formula_cells(path, part_name) if part and part.has_formulas else (frozenset(), {})
+                sheets[title] = RawSheet(title, header, numbers, columns, hidden=state != "visible",
+                                         merged=_merged_ranges(part) if part else (), formula_blanks=blanks,
+                                         formula_values=values,
+                                         formula_results_stale=self._scan.formula_results_stale)
+        finally:
+            if slow_book is not None:
+                slow_book.close()
+        return sheets
+
+
+def _inspect(path: Path) -> ArchiveScan:
+    if importlib.util.find_spec("defusedxml") is None:  # openpyxl parses through it when it is there
+        raise UnreadableWorkbook("defusedxml is not installed, so untrusted XML cannot be parsed safely; "
+                                 "install the package's dependencies")
+    return inspect_archive(path)
+
+
+T = TypeVar("T")
+
+
+def _guarded(path: Path, step: Callable[[Path], T]) -> T:
+    """``step(path)`` with openpyxl's warnings silenced and any failure as :class:`UnreadableWorkbook`.
+
+    The readers' failures on malformed parts are open-ended (ParseError,
+    KeyError, ValueError, TypeError, zlib.error, defusedxml's refusals...);
+    a stranger's file must give a finding, never a traceback.
+    """
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return step(path)
+    except Exception as exc:
+        raise UnreadableWorkbook(_open_failure(path.name, exc)) from exc
+
+
+def _calamine_reads(part: PartScan | None) -> bool:
+    """Whether calamine may read the sheet in this part (see the module docstring)."""
+    return part is not None and part.plain_cells and not part.has_error_cells
 
 
 def _sheet_entries(path: Path) -> list[tuple[str, str, str]]:
@@ -234,35 +305,6 @@ def _sheet_entries(path: Path) -> list[tuple[str, str, str]]:
                 if rel.target in excel.valid_files and "chartsheet" not in rel.Type]
     finally:
         excel.archive.close()
-
-
-def _read_all(path: Path, scan: ArchiveScan) -> dict[str, RawSheet]:
-    import openpyxl
-    import python_calamine
-
-    sheets: dict[str, RawSheet] = {}
-    fast_book = slow_book = None
-    try:
-        for title, state, part_name in _sheet_entries(path):
-            part = scan.parts.get(part_name)
-            if part is not None and part.plain_cells and not part.has_error_cells:
-                fast_book = fast_book or python_calamine.CalamineWorkbook.from_path(str(path))
-                header, numbers, columns = _calamine_values(
-                    fast_book.get_sheet_by_name(title).to_python(skip_empty_area=False))
-            else:
-                if slow_book is None:
-                    slow_book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
-                header, numbers, columns = _openpyxl_values(slow_book[title])
-            blanks, values = _formula_cells(path, part_name) if part and part.has_formulas else (frozenset(), {})
-            sheets[title] = RawSheet(title, header, numbers, columns, hidden=state != "visible",
-                                     merged=_merged_ranges(part) if part else (), formula_blanks=blanks,
-                                     formula_values=values, formula_results_stale=scan.formula_results_stale)
-    finally:
-        if fast_book is not None:
-            fast_book.close()
-        if slow_book is not None:
-            slow_book.close()
-    return sheets
 
 
 def _open_failure(name: str, exc: Exception) -> str:

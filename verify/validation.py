@@ -51,7 +51,6 @@ import datetime as dt
 import difflib
 import math
 import re
-import sys
 from dataclasses import dataclass
 from typing import Any, Callable, Sequence
 
@@ -81,6 +80,13 @@ class TypedSheet:
     spec: SheetSpec
     frame: pd.DataFrame
     letters: dict[str, str]
+    filled: frozenset[str] = frozenset()  # columns known to hold a value in every row
+
+    def complete(self, columns: tuple[str, ...]) -> np.ndarray:
+        """Whether each row has a value in every one of ``columns``."""
+        if self.filled.issuperset(columns):
+            return np.ones(len(self.frame), bool)
+        return self.frame[list(columns)].notna().all(axis=1).to_numpy()
 
     def cell(self, column: str, row: int) -> str:
         letter = self.letters.get(column)
@@ -422,7 +428,7 @@ def _type_column(sheet: str, column: ColumnSpec, index: int, raw: RawSheet, cell
     """
     values, plain = _QUICK[column.kind](column, cells)
     findings: list[Finding] = []
-    if plain is True:
+    if plain is True:  # every cell holds a valid value
         return values, findings
     as_text: list[int] = []  # rows of numbers stored as text
     recased: list[tuple[int, str, str]] = []  # (row, raw, value) of choices read despite their case
@@ -512,20 +518,28 @@ class _IntegerValues:
 
 
 def _trimmed(cells: Sequence[Any]) -> tuple[list[Any], bool]:
-    """Each text cell trimmed and interned (others None), and whether every cell was text.
-
-    Interning makes equal texts one object, so the joins, group-bys and
-    comparisons on key columns that follow match by identity instead of
-    comparing characters (measured: it halves the consistency checks and the
-    calculation on a 500,000-row Trees sheet).
-    """
+    """Each text cell trimmed (others None), and whether every cell was text."""
     try:
-        return list(map(sys.intern, map(str.strip, cells))), True  # C-level passes when the column is all text
+        return list(map(str.strip, cells)), True  # one C-level pass when the column is all text
     except TypeError:  # a blank, a number, a date...
-        return [sys.intern(v.strip()) if type(v) is str else None for v in cells], False
+        return [v.strip() if type(v) is str else None for v in cells], False
 
 
-def _quick_texts(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
+def _shared(texts: list[str], distinct: set[str]) -> list[str]:
+    """``texts`` with each value one shared object, when values repeat (ids of plots, species...).
+
+    Equal texts that are one object match by identity in the joins, group-bys and comparisons
+    that follow instead of comparing characters: measured on a 500,000-row Trees sheet, this
+    halves the consistency checks and the calculation.  A column of mostly distinct values (tree
+    ids) is left as it is: there the look-ups cost more than they save (also measured).
+    """
+    if len(distinct) * 4 > len(texts):  # a tuning constant, chosen by measurement, not from a source
+        return texts
+    canonical = dict(zip(distinct, distinct))
+    return list(map(canonical.__getitem__, texts))
+
+
+def _quick_texts(column: ColumnSpec, cells: Sequence[Any]) -> tuple[list[Any], Any]:
     """Trimmed text of the cells that hold non-blank text within the length limit, and a mask of
     those cells (True: all of them)."""
     texts, all_text = _trimmed(cells)
@@ -534,18 +548,20 @@ def _quick_texts(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
         distinct = set(texts)
         if "" not in distinct and distinct.isdisjoint(ERROR_VALUES) and (
                 limit is None or max(map(len, distinct), default=0) <= limit):
-            return texts, True
+            return _shared(texts, distinct), True
     return texts, [bool(t) and t not in ERROR_VALUES and (limit is None or len(t) <= limit) for t in texts]
 
 
-def _quick_choices(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
+def _quick_choices(column: ColumnSpec, cells: Sequence[Any]) -> tuple[list[Any], Any]:
     """Text of the cells that hold exactly an allowed value (once trimmed), and a mask of those
-    cells (True: all of them)."""
-    allowed = frozenset(column.enum)
-    texts, all_text = _trimmed(cells)
-    if all_text and set(texts) <= allowed:
-        return texts, True
-    return texts, [t in allowed for t in texts]
+    cells (True: all of them).  Each value becomes the schema's own string object, so that equal
+    choices are one object (see :func:`_shared`)."""
+    allowed = {choice: choice for choice in column.enum}
+    try:
+        return list(map(allowed.__getitem__, map(str.strip, cells))), True  # C-level passes
+    except (KeyError, TypeError):  # a blank, another value, a number...
+        texts, _ = _trimmed(cells)
+        return texts, [t in allowed for t in texts]
 
 
 def _quick_dates(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
@@ -566,6 +582,7 @@ def type_table(spec: SheetSpec, raw: RawSheet) -> tuple[TypedSheet, list[Finding
     findings.extend(sheet_read_findings(spec.name, raw, {index: name for name, index in positions.items()}))
     letters = {name: get_column_letter(index + 1) for name, index in positions.items()}
     data: dict[str, Any] = {}
+    filled = set()
     for column in spec.columns:
         index = positions.get(column.name)
         if index is None:
@@ -573,11 +590,21 @@ def type_table(spec: SheetSpec, raw: RawSheet) -> tuple[TypedSheet, list[Finding
             continue
         data[column.name], problems = _type_column(spec.name, column, index, raw, raw.column(index))
         findings.extend(problems)
+        if not problems and _has_no_blank(data[column.name]):
+            filled.add(column.name)
     if not raw.numbers:
         return TypedSheet(spec, _empty_frame(spec), letters), findings
     frame = pd.DataFrame({c.name: _series(c, data[c.name]) for c in spec.columns})
     frame[ROW] = np.asarray(raw.numbers, dtype=np.int64)
-    return TypedSheet(spec, frame, letters), findings
+    return TypedSheet(spec, frame, letters, frozenset(filled)), findings
+
+
+def _has_no_blank(values: Any) -> bool:
+    if isinstance(values, np.ndarray):
+        return not np.isnan(values).any()
+    if isinstance(values, _IntegerValues):
+        return not np.isnan(values.numbers).any()
+    return None not in values
 
 
 def _series(column: ColumnSpec, values: Any) -> pd.Series:
@@ -593,7 +620,7 @@ def unique_key_findings(sheet: TypedSheet) -> list[Finding]:
     for key in sheet.spec.unique:
         keys = frame[list(key)]
         # A key with a blank part is left to the required-value check.
-        complete = keys.notna().all(axis=1).to_numpy()
+        complete = sheet.complete(key)
         duplicated = keys.duplicated(keep="first").to_numpy() & complete
         if not duplicated.any():
             continue
@@ -621,8 +648,8 @@ def reference_findings(sheet: TypedSheet, sheets: dict[str, TypedSheet]) -> list
             continue
         source_keys, target_keys = frame[list(ref.columns)], target.frame[list(ref.target)]
         source_codes, target_codes = key_codes(source_keys, target_keys)
-        complete = source_keys.notna().all(axis=1).to_numpy()
-        known = target_codes[target_keys.notna().all(axis=1).to_numpy()]
+        complete = sheet.complete(ref.columns)
+        known = target_codes[target.complete(ref.target)]
         rows = frame[ROW].to_numpy()
         for i in np.flatnonzero(complete & ~np.isin(source_codes, known)):
             label = ", ".join(f"{c}={source_keys[c].iat[i]}" for c in ref.columns)
@@ -642,9 +669,9 @@ def key_codes(*tables: pd.DataFrame) -> list[np.ndarray]:
     combined = np.zeros(sizes[-1], np.int64)
     for position in range(len(tables[0].columns)):
         values = np.concatenate([table.iloc[:, position].to_numpy(object) for table in tables])
-        codes, uniques = pd.factorize(values, use_na_sentinel=False)
+        codes, uniques = pd.factorize(values)  # a blank is -1
         # Below len(rows) * (len(uniques) + 1) < 2**63, then made compact again for the next column.
-        combined, _ = pd.factorize(combined * (len(uniques) + 1) + codes)
+        combined, _ = pd.factorize(combined * (len(uniques) + 1) + (codes + 1))
     return [combined[start:end] for start, end in zip(sizes[:-1], sizes[1:])]
 
 

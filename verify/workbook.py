@@ -110,6 +110,7 @@ def load_workbook(path: str | Path, read: BackgroundRead | None = None) -> Loade
                                                           f"no file at {path}")])
     with cyclic_gc_paused():  # see there: millions of short-lived containers, no cycles
         read = read or BackgroundRead(path)
+        all_sheets()  # loads the schemas while the worker parses
         try:
             raw = read.result()
         except UnreadableWorkbook as exc:
