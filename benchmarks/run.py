@@ -9,9 +9,10 @@ fresh process so that peak memory is that step's own:
 - ``verify check`` and ``verify run --no-pdf`` on the same file;
 - the PDF alone, rendered from the run's results.json;
 - Monte Carlo net removals at 100k and 1M draws (in-process, best of 3);
-- ``verify --help``.
+- ``verify --help``;
+- the phases of one ``verify run --no-pdf`` on the largest workbook.
 
-Usage: .venv/bin/python benchmarks/run.py [--sizes 10000 100000 500000] [--keep DIR]
+Usage: .venv/bin/python benchmarks/run.py [--sizes 10000 100000 500000] [--repeat 3] [--keep DIR]
 Prints a Markdown table; nothing here is a test and nothing asserts a time.
 Targets (README, Performance): run within 1.5x of the bare read at 100k and
 500k rows; memory linear in rows; 1M draws under 1 s; --help under 0.5 s.
@@ -97,15 +98,67 @@ PDF_ONLY = ("import sys, json, pathlib; from verify.report_pdf import write_summ
             "write_summary_pdf(json.loads(pathlib.Path(sys.argv[1]).read_text()), pathlib.Path(sys.argv[2]))")
 
 
-def bench_size(n_trees: int, folder: Path) -> dict[str, tuple[float, float]]:
-    workbook = write_forest_workbook(folder / f"trees_{n_trees}.xlsx", n_trees)
+def bench_size(n_trees: int, folder: Path, repeat: int) -> dict[str, list[tuple[float, float]]]:
+    """Each step ``repeat`` times, the steps interleaved so that a slow spell of the machine
+    falls on all of them alike."""
+    workbook = folder / f"trees_{n_trees}.xlsx"
+    if not workbook.exists():
+        write_forest_workbook(workbook, n_trees)
     out = folder / f"out_{n_trees}"
-    return {
-        "bare read (calamine)": measure([PYTHON, "-c", BARE_READ, str(workbook)]),
-        "verify check": measure(VERIFY + ["check", str(workbook)]),
-        "verify run --no-pdf": measure(VERIFY + ["run", str(workbook), "--out", str(out), "--no-pdf"]),
-        "PDF alone": measure([PYTHON, "-c", PDF_ONLY, str(out / "results.json"), str(out / "summary.pdf")]),
+    steps = {
+        "bare read (calamine)": [PYTHON, "-c", BARE_READ, str(workbook)],
+        "verify check": VERIFY + ["check", str(workbook)],
+        "verify run --no-pdf": VERIFY + ["run", str(workbook), "--out", str(out), "--no-pdf"],
+        "PDF alone": [PYTHON, "-c", PDF_ONLY, str(out / "results.json"), str(out / "summary.pdf")],
     }
+    runs: dict[str, list[tuple[float, float]]] = {step: [] for step in steps}
+    for _ in range(repeat):
+        for step, command in steps.items():
+            runs[step].append(measure(command))
+    return runs
+
+
+def phases(workbook: Path) -> dict[str, float]:
+    """Seconds of each phase of ``verify run --no-pdf``, in this process, as the CLI orders them."""
+    import shutil
+
+    started = time.perf_counter()
+    marks: dict[str, float] = {}
+
+    def mark(name: str) -> None:
+        marks[name] = time.perf_counter() - started - sum(marks.values())
+
+    from verify.reader import BackgroundRead, cyclic_gc_paused
+
+    read = BackgroundRead(workbook)
+    mark("hash, safety scan, sheet list (before the worker starts)")
+    from verify.engine import compute
+    from verify.outputs import write_outputs
+    from verify.schema import all_sheets
+    from verify.workbook import load_workbook
+    all_sheets()
+    mark("imports and schemas while the worker parses")
+    with cyclic_gc_paused():
+        read.result()
+        mark("waiting for the worker's parse and conversion")
+        book = load_workbook(workbook, read)  # the parsed sheets are taken as they are
+        mark("validation and consistency checks")
+        result = compute(book)
+        mark("calculation")
+    out = Path(tempfile.mkdtemp(prefix="verify-phases-"))
+    try:
+        write_outputs(result, out, pdf=False)
+    finally:
+        shutil.rmtree(out, ignore_errors=True)
+    mark("results.json and results.xlsx")
+    return marks
+
+
+def print_phases(workbook: Path) -> None:
+    output = subprocess.run([PYTHON, __file__, "--phases-of", str(workbook)], check=True,
+                            capture_output=True, text=True).stdout
+    for name, seconds in json.loads(output).items():
+        print(f"| {name} | {seconds:.2f} |")
 
 
 def bench_monte_carlo(draws: int) -> float:
@@ -128,21 +181,35 @@ def bench_monte_carlo(draws: int) -> float:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000, 500_000])
-    parser.add_argument("--keep", type=Path, help="keep the generated workbooks and outputs here")
+    parser.add_argument("--keep", type=Path, help="keep the generated workbooks and outputs here (and reuse them)")
+    parser.add_argument("--repeat", type=int, default=3, help="runs of each step; the best and worst are shown")
+    parser.add_argument("--phases-of", type=Path, help=argparse.SUPPRESS)  # the child process of the phase table
     args = parser.parse_args()
+    if args.phases_of:
+        print(json.dumps(phases(args.phases_of)))
+        return
     folder = args.keep or Path(tempfile.mkdtemp(prefix="verify-bench-"))
     folder.mkdir(parents=True, exist_ok=True)
     try:
-        print("| rows | step | seconds | peak MiB | x bare read |\n|---:|---|---:|---:|---:|")
+        print(f"| rows | step | best of {args.repeat} s | worst s | peak MiB | x bare read (best) |\n"
+              "|---:|---|---:|---:|---:|---:|")
         for n_trees in args.sizes:
-            results = bench_size(n_trees, folder)
-            floor = results["bare read (calamine)"][0]
-            for step, (seconds, mib) in results.items():
-                print(f"| {n_trees:,} | {step} | {seconds:.2f} | {mib:.0f} | {seconds / floor:.2f} |", flush=True)
+            runs = bench_size(n_trees, folder, args.repeat)
+            floor = min(seconds for seconds, _ in runs["bare read (calamine)"])
+            for step, measured in runs.items():
+                best, worst = min(s for s, _ in measured), max(s for s, _ in measured)
+                mib = max(m for _, m in measured)
+                print(f"| {n_trees:,} | {step} | {best:.2f} | {worst:.2f} | {mib:.0f} | {best / floor:.2f} |",
+                      flush=True)
         for draws in (100_000, 1_000_000):
-            print(f"| - | Monte Carlo {draws:,} draws | {bench_monte_carlo(draws):.3f} | - | - |", flush=True)
-        help_seconds, help_mib = measure(VERIFY + ["--help"])
-        print(f"| - | verify --help | {help_seconds:.2f} | {help_mib:.0f} | - |")
+            print(f"| - | Monte Carlo {draws:,} draws (best of 3) | {bench_monte_carlo(draws):.3f} | - | - | - |",
+                  flush=True)
+        help_runs = [measure(VERIFY + ["--help"]) for _ in range(args.repeat)]
+        print(f"| - | verify --help | {min(s for s, _ in help_runs):.2f} | {max(s for s, _ in help_runs):.2f} "
+              f"| {max(m for _, m in help_runs):.0f} | - |")
+        print("\nWhere `verify run --no-pdf` spends its time on the largest workbook (one run):\n\n"
+              "| phase | seconds |\n|---|---:|")
+        print_phases(folder / f"trees_{max(args.sizes)}.xlsx")
         print(json.dumps({"python": sys.version.split()[0], "cpus": os.cpu_count()}))
     finally:
         if not args.keep:
