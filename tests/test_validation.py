@@ -220,7 +220,7 @@ def test_reference_needs_the_pair_not_each_part(tmp_path):
                    for code, cell in found)
 
 
-@pytest.mark.parametrize("seed", range(5))
+@pytest.mark.parametrize("seed", range(6))
 def test_key_codes_match_python_tuple_equality(seed):
     # Reference: Python's own equality of key tuples (1 == 1.0, "a" != "A"), compared pairwise.
     import random
@@ -231,8 +231,11 @@ def test_key_codes_match_python_tuple_equality(seed):
 
     rng = random.Random(seed)
     pool = ["a", "A", "b", 1, 1.0, 2.5, None]
-    left = pd.DataFrame({"x": [rng.choice(pool) for _ in range(40)], "y": [rng.choice(pool) for _ in range(40)]})
-    right = pd.DataFrame({"u": [rng.choice(pool) for _ in range(25)], "v": [rng.choice(pool) for _ in range(25)]})
+    width = 1 + seed % 3  # one, two and three key columns
+
+    def table(rows: int) -> pd.DataFrame:
+        return pd.DataFrame({f"k{i}": [rng.choice(pool) for _ in range(rows)] for i in range(width)})
+    left, right = table(40), table(25)
     codes = [c.tolist() for c in key_codes(left, right)]
     keys = [list(left.itertuples(index=False, name=None)), list(right.itertuples(index=False, name=None))]
     flat = [(k, c) for table_keys, table_codes in zip(keys, codes) for k, c in zip(table_keys, table_codes)]

@@ -669,9 +669,11 @@ def key_codes(*tables: pd.DataFrame) -> list[np.ndarray]:
     combined = np.zeros(sizes[-1], np.int64)
     for position in range(len(tables[0].columns)):
         values = np.concatenate([table.iloc[:, position].to_numpy(object) for table in tables])
-        codes, uniques = pd.factorize(values)  # a blank is -1
-        # Below len(rows) * (len(uniques) + 1) < 2**63, then made compact again for the next column.
-        combined, _ = pd.factorize(combined * (len(uniques) + 1) + (codes + 1))
+        codes, uniques = pd.factorize(values)  # a blank is -1, made 0 below
+        if position > 1:  # made compact again, so that the product below stays under 2**63
+            combined, _ = pd.factorize(combined)
+        # Below len(rows) * (len(uniques) + 1): under 2**63 for any sheet this tool reads.
+        combined = combined * (len(uniques) + 1) + (codes + 1)
     return [combined[start:end] for start, end in zip(sizes[:-1], sizes[1:])]
 
 
