@@ -71,8 +71,8 @@ def _print_finding_digest(findings: list) -> None:
 
 
 def _start_reading(workbook: Path) -> BackgroundRead:
-    """Start reading the workbook on a worker thread before the calculation libraries are imported:
-    their import (about a second) then overlaps the parse instead of preceding it."""
+    """Scan the workbook and start its parse on a worker thread before the calculation libraries
+    are imported: their import (about a second) then overlaps the parse instead of preceding it."""
     from .reader import BackgroundRead
 
     return BackgroundRead(workbook)

@@ -160,7 +160,7 @@ def _consecutive_measurements(book: LoadedWorkbook) -> pd.DataFrame:
     trees = trees.loc[trees["dbh_cm"].notna(), ["plot_id", "event", "tree_id", "dbh_cm", "status", ROW]]
     trees = trees.assign(rank=trees["event"].map(rank)).dropna(subset=["rank"])
     trees = trees.merge(visits, on=["plot_id", "event"], how="left")
-    trees["tree"], = key_codes(trees[["plot_id", "tree_id"]])  # an integer join key, text hashed once
+    trees["tree"] = key_codes(trees[["plot_id", "tree_id"]])[0]  # an integer join key, text hashed once
     previous = trees.drop(columns=["plot_id", "tree_id"]).assign(rank=trees["rank"] + 1)
     pairs = trees.merge(previous, on=["tree", "rank"], suffixes=("", "_before"))
     pairs["years"] = (pairs["measured_on"] - pairs["measured_on_before"]).dt.days / 365.25

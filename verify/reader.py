@@ -16,6 +16,8 @@ beyond Z, error cells, which calamine reads as blanks) is read by openpyxl in
 read-only mode, which parses XML through defusedxml (it refuses entity
 declarations; reading refuses to start without it).  The sheet list, order
 and visibility come from openpyxl's parse of the workbook part either way.
+calamine's parse runs on a worker thread (:class:`BackgroundRead`), so that
+the caller's imports overlap it; everything else runs in the caller's thread.
 calamine reads a date cell as ``datetime.date`` where openpyxl gives a
 ``datetime.datetime`` at midnight, and whole numbers as floats; validation
 reads both alike.
@@ -52,8 +54,8 @@ from typing import IO, Any, Callable, Iterator, Sequence, TypeVar
 from .findings import Finding
 from .safety import FORMULA_TAG, ArchiveScan, PartScan, UnreadableWorkbook, inspect_archive
 
-__all__ = ["MAX_COLUMNS", "MAX_ROWS", "BackgroundRead", "RawBook", "RawSheet", "UnreadableWorkbook", "cyclic_gc_paused",
-           "parse_formula_cells", "read_sheets", "scan_formula_cells", "sha256_of"]
+__all__ = ["MAX_COLUMNS", "MAX_ROWS", "BackgroundRead", "RawBook", "RawSheet", "UnreadableWorkbook",
+           "cyclic_gc_paused", "parse_formula_cells", "read_sheets", "scan_formula_cells", "sha256_of"]
 
 # The largest sheet spreadsheet programs write has 1,048,576 rows (common
 # practice, no source).  A row number beyond it can only come from a crafted
@@ -78,6 +80,8 @@ _FORMULA, _VALUE = f"{_MAIN_NS}f", f"{_MAIN_NS}v"
 
 # (row, index) of formulas without a stored result; per column index, (first row, count) of those with one.
 FormulaCells = tuple[frozenset[tuple[int, int]], dict[int, tuple[int, int]]]
+# A sheet's header, the row number of each data row, and its cells column by column.
+SheetValues = tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]
 
 
 @dataclass(frozen=True)
@@ -191,7 +195,7 @@ class BackgroundRead:
         self.path = Path(path)
         self.sha256 = ""  # of the file as read ("" when it cannot be read)
         self._failure: UnreadableWorkbook | None = None
-        self._parsed: dict[str, tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]] = {}
+        self._parsed: dict[str, SheetValues] = {}
         self._worker_failure: Exception | None = None
         self._worker: threading.Thread | None = None
         try:
@@ -220,7 +224,7 @@ class BackgroundRead:
                     for title in titles:
                         grid = book.get_sheet_by_name(title).to_python(skip_empty_area=False)
                         self._parsed[title] = _calamine_values(grid)
-                        del grid  # the columns hold the values; the grid's lists can go now
+                        del grid  # freed before the next sheet's parse, not after it
                 finally:
                     book.close()
         except Exception as exc:  # handed to the caller's thread by result()
@@ -326,7 +330,7 @@ def _macro_findings(path: Path, scan: ArchiveScan) -> list[Finding]:
                     "and only the stored cell values were read")]
 
 
-def _calamine_values(grid: list[list[Any]]) -> tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]:
+def _calamine_values(grid: list[list[Any]]) -> SheetValues:
     """Header, row numbers and columns of a calamine grid (list index + 1 is the row number, A1 first).
 
     calamine gives an empty cell as ""; it becomes None, as openpyxl reads it.
@@ -374,7 +378,7 @@ def _take(values: tuple[Any, ...], keep: list[int]) -> tuple[Any, ...]:
     return tuple(values[i] for i in keep)
 
 
-def _openpyxl_values(ws: Any) -> tuple[tuple[Any, ...], tuple[int, ...], tuple[tuple[Any, ...], ...]]:
+def _openpyxl_values(ws: Any) -> SheetValues:
     # Some writers store a wrong sheet dimension; without this, read-only mode
     # would silently stop at the declared last row.
     ws.reset_dimensions()

@@ -476,7 +476,7 @@ def _type_cell(column: ColumnSpec, convert: Callable[[Any], Any], value: Any, fo
     return typed, None
 
 
-def _quick_numbers(column: ColumnSpec, cells: list[Any]) -> tuple[Any, Any]:
+def _quick_numbers(column: ColumnSpec, cells: Sequence[Any]) -> tuple[Any, Any]:
     """Float values and a mask of the cells typed here (True: all of them): finite numbers within
     the column's bounds."""
     try:
@@ -564,13 +564,13 @@ def _quick_choices(column: ColumnSpec, cells: Sequence[Any]) -> tuple[list[Any],
         return texts, [t in allowed for t in texts]
 
 
-def _quick_dates(column: ColumnSpec, cells: list[Any]) -> tuple[list[Any], Any]:
+def _quick_dates(column: ColumnSpec, cells: Sequence[Any]) -> tuple[list[Any], Any]:
     """Dates of the cells that hold a date or a date-time; the rest are marked."""
     values = [v.date() if type(v) is dt.datetime else v if type(v) is dt.date else None for v in cells]
     return values, [v is not None for v in values]
 
 
-_QUICK: dict[str, Callable[[ColumnSpec, list[Any]], tuple[Any, Any]]] = {
+_QUICK: dict[str, Callable[[ColumnSpec, Sequence[Any]], tuple[Any, Any]]] = {
     "number": _quick_numbers, "integer": _quick_numbers, "string": _quick_texts,
     "enum": _quick_choices, "date": _quick_dates,
 }
