@@ -178,14 +178,16 @@ class BackgroundRead:
     """A workbook read with its largest step, calamine's parse, on a worker thread.
 
     The constructor does, in the caller's thread, what must come first and
-    holds the interpreter lock anyway: the hash, the safety scan of every
-    part and the sheet list.  It then starts the worker, which parses the
-    plain sheets with calamine; calamine does not hold the interpreter lock
-    while it parses, so a caller that goes on to import the calculation
-    libraries (pandas, scipy, openpyxl: about a second) has them loaded by
-    the time the sheets are (see README, Performance).  :meth:`result`
-    waits, reads any other sheet with openpyxl in the caller's thread, and
-    returns what :func:`read_sheets` returns, or raises what it raises.
+    holds the interpreter lock anyway: the hash and the safety scan of every
+    part.  It then starts the worker, which parses the plain sheets with
+    calamine, and lists the sheets with openpyxl meanwhile (or first, when
+    some part is not plain, to learn which sheets those are).  calamine does
+    not hold the interpreter lock while it parses, so a caller that goes on
+    to import the calculation libraries (pandas, scipy: about a second) has
+    them loaded by the time the sheets are (see README, Performance).
+    :meth:`result` waits, reads any other sheet with openpyxl in the
+    caller's thread, and returns what :func:`read_sheets` returns, or raises
+    what it raises.
 
     Only the caller's thread touches the warnings filters (openpyxl's
     warnings are silenced while it reads): they are process-wide.
@@ -204,23 +206,35 @@ class BackgroundRead:
             pass  # the scan says why the file cannot be read
         try:
             self._scan = _inspect(self.path)
-            self._entries = _guarded(self.path, _sheet_entries)
+            if self._scan.parts and all(map(_calamine_reads, self._scan.parts.values())):
+                # No part would send a sheet to openpyxl: the parse of every worksheet starts
+                # now, and openpyxl lists the sheets (titles, visibility, parts) meanwhile.
+                self._start_worker(None)
+                self._entries = _guarded(self.path, _sheet_entries)
+            else:
+                self._entries = _guarded(self.path, _sheet_entries)
+                fast = [title for title, _, part in self._entries if _calamine_reads(self._scan.parts.get(part))]
+                if fast:
+                    self._start_worker(fast)
         except UnreadableWorkbook as exc:
             self._failure = exc
-            return
-        fast = [title for title, _, part in self._entries if _calamine_reads(self._scan.parts.get(part))]
-        if fast:
-            # A daemon thread: a caller that stops early is not held until the parse ends.
-            self._worker = threading.Thread(target=self._parse, args=(fast,), name="verify-read", daemon=True)
-            self._worker.start()
 
-    def _parse(self, titles: list[str]) -> None:
+    def _start_worker(self, titles: list[str] | None) -> None:
+        # A daemon thread: a caller that stops early is not held until the parse ends.
+        self._worker = threading.Thread(target=self._parse, args=(titles,), name="verify-read", daemon=True)
+        self._worker.start()
+
+    def _parse(self, titles: list[str] | None) -> None:
+        """Parse the sheets named (every worksheet when None) into :attr:`_parsed`."""
         import python_calamine
 
         try:
             with cyclic_gc_paused():
                 book = python_calamine.CalamineWorkbook.from_path(str(self.path))
                 try:
+                    if titles is None:
+                        titles = [sheet.name for sheet in book.sheets_metadata
+                                  if sheet.typ == python_calamine.SheetTypeEnum.WorkSheet]
                     for title in titles:
                         grid = book.get_sheet_by_name(title).to_python(skip_empty_area=False)
                         self._parsed[title] = _calamine_values(grid)
@@ -232,10 +246,10 @@ class BackgroundRead:
 
     def result(self) -> RawBook:
         """The sheets, as :func:`read_sheets` gives them; raises :class:`UnreadableWorkbook`."""
-        if self._failure is not None:
-            raise self._failure
         if self._worker is not None:
             self._worker.join()
+        if self._failure is not None:
+            raise self._failure
         if self._worker_failure is not None:
             raise UnreadableWorkbook(_open_failure(self.path.name, self._worker_failure)) from self._worker_failure
         with cyclic_gc_paused():
